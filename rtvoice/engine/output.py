@@ -1,0 +1,108 @@
+"""The output stage: electronics filter, gain ramp, DC blocker, limiter.
+
+Each stage processes one block in place and carries its state to the next
+block, so the same code serves real-time and offline rendering.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import scipy.signal
+
+from rtvoice.physics.electronics import lowpass_biquad
+
+CEILING_DBFS = -1.0
+CEILING = 10.0 ** (CEILING_DBFS / 20.0)  # 0.891251 linear
+
+
+class BlockFilter:
+    """A linear filter (b, a) applied block by block with carried state.
+
+    New coefficients keep the state, so a change of resonance while notes ring
+    does not restart the filter.
+    """
+
+    def __init__(self, b: np.ndarray, a: np.ndarray):
+        self.b, self.a = np.asarray(b, float), np.asarray(a, float)
+        self.zi = np.zeros(max(len(self.a), len(self.b)) - 1)
+
+    def set_coefficients(self, b: np.ndarray, a: np.ndarray) -> None:
+        b, a = np.asarray(b, float), np.asarray(a, float)
+        if len(b) != len(self.b) or len(a) != len(self.a):
+            self.zi = np.zeros(max(len(a), len(b)) - 1)
+        self.b, self.a = b, a
+
+    def process(self, x: np.ndarray) -> None:
+        y, self.zi = scipy.signal.lfilter(self.b, self.a, x, zi=self.zi)
+        x[:] = y
+        if not np.all(np.isfinite(self.zi)):
+            self.zi[:] = 0.0
+
+    def reset(self) -> None:
+        self.zi[:] = 0.0
+
+
+def electronics_filter(resonance_hz: float, q: float, sample_rate_hz: float) -> BlockFilter | None:
+    """The coil-and-cable low-pass, or None when bypassed (resonance 0)."""
+    if resonance_hz <= 0:
+        return None
+    return BlockFilter(*lowpass_biquad(resonance_hz, q, sample_rate_hz))
+
+
+def dc_blocker(sample_rate_hz: float, corner_hz: float = 5.0) -> BlockFilter:
+    """y[n] = x[n] - x[n-1] + R y[n-1] with R from the corner frequency (Smith, Introduction to Digital Filters)."""
+    r = math.exp(-2 * math.pi * corner_hz / sample_rate_hz)
+    return BlockFilter([1.0, -1.0], [1.0, -r])
+
+
+class Limiter:
+    """Peak limiter with a hard ceiling, no look-ahead (so no added latency).
+
+    The gain falls to what the block's loudest sample needs, reaching it at that
+    sample, and recovers with a release time constant. Anything still above the
+    ceiling (a transient inside the attack ramp) is clipped, so no sample ever
+    exceeds :data:`CEILING`. ``gain_reduction_db`` reports the deepest reduction of
+    the last block; ``clipped`` counts samples that needed the safety clip.
+    """
+
+    def __init__(self, sample_rate_hz: float, block_frames: int, release_s: float = 0.15):
+        self.gain = 1.0
+        self.block = block_frames
+        self.release_coef = math.exp(-1.0 / (release_s * sample_rate_hz))
+        self._ramp = np.empty(block_frames)
+        self._work = np.empty(block_frames)
+        self._idx = np.arange(1, block_frames + 1, dtype=float)
+        self._release_curve = self.release_coef ** self._idx
+        self.gain_reduction_db = 0.0
+        self.clipped = 0
+
+    def process(self, x: np.ndarray) -> None:
+        n = x.size
+        ramp, work = self._ramp[:n], self._work[:n]
+        np.abs(x, out=work)
+        peak_at = int(np.argmax(work))
+        peak = float(work[peak_at])
+        g0 = self.gain
+        # Release: the gain climbs back towards 1.
+        np.multiply(self._release_curve[:n], g0 - 1.0, out=ramp)
+        ramp += 1.0
+        if peak * ramp[peak_at] > CEILING:
+            target = CEILING / peak
+            # Attack: a straight line from g0 to the target at the peak, then held.
+            steps = peak_at + 1
+            ramp[:steps] = g0 + (target - g0) * self._idx[:steps] / steps
+            ramp[steps:] = np.minimum(ramp[steps:], target)
+        x *= ramp
+        self.gain = float(ramp[-1])
+        self.gain_reduction_db = -20.0 * math.log10(max(float(ramp.min()), 1e-12))
+        np.abs(x, out=work)
+        over = int(np.count_nonzero(work > CEILING))
+        if over:
+            self.clipped += over
+            np.clip(x, -CEILING, CEILING, out=x)
+
+    def reset(self) -> None:
+        self.gain = 1.0
+        self.gain_reduction_db = 0.0

@@ -1,0 +1,536 @@
+"""The block renderer: MIDI events in, one block of samples out.
+
+The same :class:`Engine` renders offline and in real time; a host only feeds it
+events (with their sample offset inside the block) and asks for blocks.
+
+How a block is computed. Every sounding mode m contributes Re(g_m s_m p_m^n) at
+sample n. With n = n1 + N1 n2 and p^n = A[n1] B[n2] (see :mod:`.voices`), the
+block for all voices at once is the complex product Y = (B * (g s))^T A of shape
+(N2, N1): a matrix-matrix product, so BLAS reuses each table entry N2 times
+instead of streaming an N x M table per block. Voices touched by an event inside
+the block (note-on, note-off, steal) are rendered on an exact per-voice path with
+the event on its sample. Live pickup and gain changes are smoothed and ramped
+linearly across the block, so they neither click nor zipper.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Iterable
+from dataclasses import dataclass
+
+import numpy as np
+
+from rtvoice.engine import midi
+from rtvoice.engine.output import CEILING, Limiter, dc_blocker, electronics_filter
+from rtvoice.engine.schema import PICKUP_FIELDS
+from rtvoice.engine.settings import Settings
+from rtvoice.engine.voices import FADING, FREE, HELD, RELEASED, SOUNDING, VoicePool
+from rtvoice.physics.damping import LN_1000, decay_rate_per_s, loss_coefficients, release_rate_per_s
+from rtvoice.physics.electronics import lowpass_biquad, rlc_resonance
+from rtvoice.physics.excitation import excitation_amplitudes
+from rtvoice.physics.modes import NYQUIST_MARGIN
+from rtvoice.physics.pickup import spatial_sums
+from rtvoice.physics.tuning import midi_note_to_hz
+
+OUTPUT_SCALE = 0.25  # one full-velocity note peaks near -12 dBFS at 0 dB gain
+RETIRE_LEVEL = 1e-5  # -100 dBFS: a voice whose bound falls below this is silent
+FADE_T60_S = 0.02  # steal, re-pluck and all-sound-off fade
+STRIKE_IMPULSE = 2.0  # a strike's travelling pulses are then of unit height, like a pluck's peak
+SMOOTHING_S = 0.015  # time constant of live parameter smoothing
+
+Event = tuple[int, int, int, int]  # (sample offset in block, status, data1, data2)
+
+
+@dataclass
+class EngineStats:
+    """What the meters show, updated every block."""
+
+    voices: int = 0
+    peak: float = 0.0
+    gain_reduction_db: float = 0.0
+    clipped: int = 0
+    stolen: int = 0
+    dropped_bad: int = 0
+    blocks: int = 0
+
+
+class Engine:
+    """A pool of string voices rendering fixed-size blocks at ``sample_rate_hz``.
+
+    ``render(events)`` returns the next ``block_frames`` samples (float64, a view
+    of an internal buffer that the next call overwrites). ``events`` are
+    (offset, status, data1, data2) tuples of MIDI channel messages in time order.
+    """
+
+    def __init__(self, settings: Settings | None = None, sample_rate_hz: float = 48000.0,
+                 block_frames: int = 256):
+        if block_frames < 1 or block_frames > 8192:
+            raise ValueError(f"block size {block_frames} must be between 1 and 8192 frames")
+        if not 8000 <= sample_rate_hz <= 384000:
+            raise ValueError(f"sample rate {sample_rate_hz} Hz must be between 8000 and 384000")
+        self.fs = float(sample_rate_hz)
+        self.block = int(block_frames)
+        self.settings = settings or Settings.defaults()
+        self.channels = midi.ChannelState()
+        self.stats = EngineStats()
+        self.controller_hook = None  # callable(channel, cc, value) for CCs the engine does not own
+        self.pressure_hook = None  # callable(channel, value01)
+        self.excitation_hook = None  # callable(channel) -> initial mode amplitudes for a note there, or None
+        self._alpha = 1.0 - math.exp(-self.block / (SMOOTHING_S * self.fs))
+        self._order = 0
+        self._out = np.zeros(self.block)
+        self._exact = np.zeros(self.block)
+        self._ramp = np.arange(1, self.block + 1) / self.block
+        self._gain_ramp = np.empty(self.block)
+        self._dc = dc_blocker(self.fs)
+        self.limiter = Limiter(self.fs, self.block)
+        self._elec = None
+        self._gain = self._gain_target = 10 ** (self.settings.get("output.gain_db") / 20)
+        self._pickups_now = [dict(p) for p in self.settings.pickups]
+        self._bend_dirty = False
+        self._pending_rebuild: Settings | None = None
+        self._build_pool()
+        self._prepare_notes()
+        self._prepare_electronics()
+        self._prepare_pickups()
+
+    # -- set-up -------------------------------------------------------------------
+    def _build_pool(self) -> None:
+        voices = self.settings.get("voices")
+        modes = self.settings.get("string.modes")
+        self.voices = voices
+        self.pool = VoicePool(voices + max(2, voices // 4), modes, self.block, self.fs)
+        slots, modes = self.pool.slots, self.pool.modes
+        n1, n2 = self.pool.n1, self.pool.n2
+        self._k = np.arange(1, modes + 1, dtype=float)
+        self._g_next = np.zeros((slots, modes), complex)
+        self._d = np.zeros((slots, modes), complex)
+        self._d64 = np.zeros(slots * modes, np.complex64)
+        self._d64b = np.zeros(slots * modes, np.complex64)
+        self._c = np.zeros((slots * modes, 2 * n2), np.complex64)
+        self._y = np.zeros((2 * n2, n1), np.complex64)
+        self._a_flat = self.pool.A.reshape(slots * modes, n1)
+        self._b_flat = self.pool.B.reshape(slots * modes, n2 + 1)
+        self._touched = np.zeros(slots, bool)
+        self._upto = np.zeros(slots, np.int64)
+        self._touched_list: list[int] = []
+        self._stash = np.zeros((slots, modes), complex)
+        self._omega_limit = 2 * np.pi * NYQUIST_MARGIN * self.fs
+
+    def _prepare_notes(self) -> None:
+        s = self.settings
+        b_coef = s.get("string.inharmonicity")
+        self._stretch = self._k * np.sqrt(1.0 + b_coef * self._k**2)  # f_k / f0
+        self._b1, self._b3 = loss_coefficients(s.get("string.t60_low"), s.get("string.t60_high"))
+        self._release_t60 = s.get("string.release")
+        kind = s.get("excitation.kind")
+        a, b = excitation_amplitudes(kind, self.pool.modes, s.get("excitation.position"),
+                                     s.get("excitation.width"), s.get("excitation.shape"))
+        # Velocity coefficients become displacement amplitudes b_k / w_k (unit length and speed).
+        self._initial = a - 1j * STRIKE_IMPULSE * b / (np.pi * self._stretch)
+
+    def excitation_initial(self, position: float, width: float) -> np.ndarray:
+        """Initial mode amplitudes of an excitation at ``position`` with ``width`` (per-note control)."""
+        s = self.settings
+        a, b = excitation_amplitudes(s.get("excitation.kind"), self.pool.modes, position, width,
+                                     s.get("excitation.shape"))
+        return a - 1j * STRIKE_IMPULSE * b / (np.pi * self._stretch)
+
+    def _prepare_electronics(self) -> None:
+        f_r, q = self.resonance()
+        if f_r <= 0:
+            self._elec = None
+        elif self._elec is None:
+            self._elec = electronics_filter(f_r, q, self.fs)
+        else:
+            self._elec.set_coefficients(*lowpass_biquad(f_r, q, self.fs))
+
+    def resonance(self) -> tuple[float, float]:
+        """(f_r in Hz, Q) of the electronics now in use; f_r = 0 when bypassed."""
+        s = self.settings
+        if s.get("electronics.inductance_h") > 0:
+            return rlc_resonance(s.get("electronics.inductance_h"), s.get("electronics.resistance_ohm"),
+                                 s.get("electronics.capacitance_f"), s.get("electronics.load_ohm"))
+        return s.get("electronics.resonance_hz"), s.get("electronics.q")
+
+    def _prepare_pickups(self) -> None:
+        self._disp, self._vel = spatial_sums(self._k, self._pickups_now)
+
+    def _weights(self, lo: int, hi: int, out: np.ndarray) -> None:
+        """Pickup weights of slots lo..hi-1 into ``out`` (modes above the limit weigh 0)."""
+        pool = self.pool
+        deriv = (-pool.sigma_hold[lo:hi] + 1j * pool.omega[lo:hi]) / pool.omega1[lo:hi, None]
+        w = self._disp + self._vel * deriv
+        w[pool.omega[lo:hi] >= self._omega_limit] = 0.0
+        out[lo:hi] = w
+
+    # -- settings -----------------------------------------------------------------
+    def apply_settings(self, settings: Settings) -> None:
+        """Take new settings: live ones act on ringing notes (smoothed), others on the next note.
+
+        A change of ``voices`` or ``string.modes`` fades every voice and rebuilds the
+        pool once they are silent.
+        """
+        old, self.settings = self.settings, settings
+        changed = settings.differences(old)
+        if not changed:
+            return
+        if any(n in ("voices", "string.modes") for n in changed):
+            self._pending_rebuild = settings
+            self._fade_all(0)
+            return
+        self._prepare_notes()
+        if any(n.startswith("electronics.") for n in changed):
+            self._prepare_electronics()
+        self._gain_target = 10 ** (settings.get("output.gain_db") / 20)
+
+    def set_value(self, name: str, value) -> None:
+        """Change one parameter by its canonical name (validated)."""
+        self.apply_settings(self.settings.with_values({name: value}))
+
+    # -- rendering ----------------------------------------------------------------
+    def render(self, events: Iterable[Event] = ()) -> np.ndarray:
+        """Render one block with ``events`` placed on their sample offsets."""
+        pool, n_blk = self.pool, self.block
+        self._exact[:] = 0.0
+        ramping = self._step_pickups()
+        for offset, status, d1, d2 in events:
+            self._handle(min(max(int(offset), 0), n_blk - 1), status, d1, d2, ramping)
+        for v in self._touched_list:
+            self._render_exact(v, n_blk, ramping)
+        self._render_bulk(ramping)
+        if ramping:
+            pool.g[: pool.n_active] = self._g_next[: pool.n_active]
+        if self._bend_dirty:
+            self._apply_bends()
+        out = self._finish()
+        self._retire()
+        return out
+
+    def _render_bulk(self, ramping: bool) -> None:
+        pool, out = self.pool, self._out
+        n = pool.n_active
+        n1, n2 = pool.n1, pool.n2
+        out[:] = 0.0
+        if n == 0:
+            self._clear_touched()
+            return
+        m = n * pool.modes
+        cols = 2 * n2 if ramping else n2
+        np.multiply(pool.g[:n], pool.s[:n], out=self._d[:n])
+        self._d64[:m] = self._d[:n].reshape(-1)
+        for v in self._touched_list:
+            self._d64[v * pool.modes:(v + 1) * pool.modes] = 0.0
+        c = self._c[:m]
+        np.multiply(self._b_flat[:m, :n2], self._d64[:m, None], out=c[:, :n2])
+        if ramping:
+            np.multiply(self._g_next[:n], pool.s[:n], out=self._d[:n])
+            self._d64b[:m] = self._d[:n].reshape(-1)
+            for v in self._touched_list:
+                self._d64b[v * pool.modes:(v + 1) * pool.modes] = 0.0
+            np.multiply(self._b_flat[:m, :n2], self._d64b[:m, None], out=c[:, n2:])
+        y = self._y[:cols]
+        np.matmul(c[:, :cols].T, self._a_flat[:m], out=y)
+        flat = y.real.reshape(-1)
+        if ramping:
+            old, new = flat[: n1 * n2][: self.block], flat[n1 * n2:][: self.block]
+            np.subtract(new, old, out=out)
+            out *= self._ramp
+            out += old
+        else:
+            out[:] = flat[: self.block]
+        out += self._exact
+        for v in self._touched_list:
+            self._stash[v] = pool.s[v]
+        pool.s[:n] *= pool.p_block[:n]
+        for v in self._touched_list:
+            pool.s[v] = self._stash[v]
+        self._clear_touched()
+
+    def _clear_touched(self) -> None:
+        for v in self._touched_list:
+            self._touched[v] = False
+        self._touched_list.clear()
+
+    def _touch(self, v: int, at: int, ramping: bool) -> None:
+        """Render slot v up to sample ``at`` on the exact path, so it may change there."""
+        if not self._touched[v]:
+            self._touched[v] = True
+            self._upto[v] = 0
+            self._touched_list.append(v)
+        self._render_exact(v, at, ramping)
+
+    def _render_exact(self, v: int, stop: int, ramping: bool) -> None:
+        pool = self.pool
+        start = int(self._upto[v])
+        count = stop - start
+        if count <= 0:
+            return
+        powers = pool.powers(v, count)
+        z0 = (pool.g[v] * pool.s[v]) @ powers
+        seg = self._exact[start:stop]
+        if ramping:
+            z1 = (self._g_next[v] * pool.s[v]) @ powers
+            r = self._ramp[start:stop]
+            seg += z0.real + (z1.real - z0.real) * r
+        else:
+            seg += z0.real
+        pool.s[v] *= pool.power(v, count)
+        self._upto[v] = stop
+
+    # -- events -------------------------------------------------------------------
+    def _handle(self, at: int, status: int, d1: int, d2: int, ramping: bool) -> None:
+        kind, ch = status & 0xF0, status & 0x0F
+        if kind == midi.NOTE_ON and d2 > 0:
+            self._note_on(at, ch, d1 & 0x7F, d2 & 0x7F, ramping)
+        elif kind == midi.NOTE_OFF or kind == midi.NOTE_ON:
+            self._note_off(at, ch, d1 & 0x7F, ramping)
+        elif kind == midi.CONTROL_CHANGE:
+            self._control(at, ch, d1 & 0x7F, d2 & 0x7F, ramping)
+        elif kind == midi.PITCH_BEND:
+            self.channels.set_bend(ch, (d1 & 0x7F) | ((d2 & 0x7F) << 7))
+            self._bend_dirty = True
+        elif kind == midi.CHANNEL_PRESSURE:
+            self.channels.pressure[ch] = (d1 & 0x7F) / 127.0
+            if self.pressure_hook:
+                self.pressure_hook(ch, self.channels.pressure[ch])
+
+    def _note_on(self, at: int, ch: int, note: int, velocity: int, ramping: bool) -> None:
+        if self._pending_rebuild is not None:
+            return
+        pool = self.pool
+        n = pool.n_active
+        # A re-plucked note stops its old vibration with a short fade, as a finger would.
+        for v in range(n):
+            if pool.note[v] == note and pool.channel[v] == ch and pool.state[v] != FADING:
+                self._fade(v, at, ramping)
+        sounding = [v for v in range(pool.n_active) if pool.state[v] != FADING]
+        if len(sounding) >= self.voices:
+            bound = pool.bound()
+            quiet = min(sounding, key=lambda v: (bound[v], pool.order[v]))
+            self._fade(quiet, at, ramping)
+            self.stats.stolen += 1
+        v = pool.allocate()
+        if v < 0:  # every slot busy: reuse the quietest fading voice
+            bound = pool.bound()
+            v = int(np.argmin(np.where(pool.state[: pool.n_active] == FADING, bound, np.inf)))
+            self._touch(v, at, ramping)
+        else:
+            self._touched[v] = True
+            self._touched_list.append(v)
+        self._upto[v] = at
+        self._start_voice(v, ch, note, velocity)
+
+    def _start_voice(self, v: int, ch: int, note: int, velocity: int) -> None:
+        pool = self.pool
+        bend = self.channels.voice_bend(ch)
+        f0 = midi_note_to_hz(note, self.settings.get("tuning.a4_hz"))
+        freqs = f0 * self._stretch
+        amp = (velocity / 127.0) ** 2  # square-law velocity curve (common practice)
+        initial = self.excitation_hook(ch) if self.excitation_hook is not None else None
+        pool.s[v] = amp * (self._initial if initial is None else initial)
+        pool.s[v][freqs >= NYQUIST_MARGIN * self.fs] = 0.0
+        pool.omega_base[v] = 2 * np.pi * freqs
+        pool.sigma_hold[v] = decay_rate_per_s(freqs, self._b1, self._b3)
+        pool.sigma[v] = pool.sigma_hold[v]
+        self._set_bend(v, bend)
+        pool.state[v] = SOUNDING
+        pool.note[v] = note
+        pool.channel[v] = ch
+        self._order += 1
+        pool.order[v] = self._order
+        pool.update_tables(v, v + 1)
+        self._weights(v, v + 1, pool.g)
+        self._g_next[v] = pool.g[v]
+
+    def _set_bend(self, v: int, bend: float) -> None:
+        pool = self.pool
+        factor = 2.0 ** (bend / 12.0)
+        pool.bend[v] = bend
+        pool.omega[v] = pool.omega_base[v] * factor
+        pool.omega1[v] = pool.omega_base[v, 0] * factor
+
+    def _note_off(self, at: int, ch: int, note: int, ramping: bool) -> None:
+        pool = self.pool
+        for v in range(pool.n_active):
+            if pool.note[v] == note and pool.channel[v] == ch and pool.state[v] == SOUNDING:
+                if self.channels.sustain[ch]:
+                    pool.state[v] = HELD
+                else:
+                    self._release(v, at, ramping)
+
+    def _release(self, v: int, at: int, ramping: bool) -> None:
+        pool = self.pool
+        self._touch(v, at, ramping)
+        pool.state[v] = RELEASED
+        pool.sigma[v] = release_rate_per_s(pool.sigma_hold[v], self._release_t60)
+        pool.update_tables(v, v + 1)
+
+    def _fade(self, v: int, at: int, ramping: bool) -> None:
+        pool = self.pool
+        self._touch(v, at, ramping)
+        pool.state[v] = FADING
+        pool.sigma[v] = np.maximum(pool.sigma[v], LN_1000 / FADE_T60_S)
+        pool.update_tables(v, v + 1)
+
+    def _fade_all(self, at: int, channel: int | None = None, ramping: bool = False) -> None:
+        pool = self.pool
+        for v in range(pool.n_active):
+            if pool.state[v] != FADING and (channel is None or pool.channel[v] == channel):
+                self._fade(v, at, ramping)
+
+    def _control(self, at: int, ch: int, cc: int, value: int, ramping: bool) -> None:
+        chan, pool = self.channels, self.pool
+        if cc == midi.CC_SUSTAIN:
+            down = value >= 64
+            chan.sustain[ch] = down
+            if not down:
+                for v in range(pool.n_active):
+                    if pool.channel[v] == ch and pool.state[v] == HELD:
+                        self._release(v, at, ramping)
+        elif cc == midi.CC_ALL_SOUND_OFF:
+            self._fade_all(at, ch, ramping)
+        elif cc == midi.CC_ALL_NOTES_OFF:
+            for v in range(pool.n_active):
+                if pool.channel[v] == ch and pool.state[v] == SOUNDING:
+                    if chan.sustain[ch]:
+                        pool.state[v] = HELD
+                    else:
+                        self._release(v, at, ramping)
+        elif cc == midi.CC_RESET_CONTROLLERS:
+            held = chan.sustain[ch]
+            chan.reset_controllers(ch)
+            self._bend_dirty = True
+            if held:
+                self._control(at, ch, midi.CC_SUSTAIN, 0, ramping)
+        elif cc == midi.CC_RPN_MSB:
+            chan.rpn[ch] = (value, chan.rpn[ch][1])
+        elif cc == midi.CC_RPN_LSB:
+            chan.rpn[ch] = (chan.rpn[ch][0], value)
+        elif cc in (midi.CC_NRPN_MSB, midi.CC_NRPN_LSB):
+            chan.rpn[ch] = midi.RPN_NULL
+        elif cc == midi.CC_DATA_ENTRY_MSB or cc == midi.CC_DATA_ENTRY_LSB:
+            msb = value if cc == midi.CC_DATA_ENTRY_MSB else None
+            lsb = value if cc == midi.CC_DATA_ENTRY_LSB else None
+            if chan.data_entry(ch, msb, lsb):
+                self._bend_dirty = True
+        else:
+            if cc == midi.CC_TIMBRE:
+                chan.timbre[ch] = value / 127.0
+            if self.controller_hook:
+                self.controller_hook(ch, cc, value)
+
+    def _apply_bends(self) -> None:
+        """Retune ringing voices to their channel's bend (takes effect at the block boundary)."""
+        self._bend_dirty = False
+        pool = self.pool
+        for v in range(pool.n_active):
+            bend = self.channels.voice_bend(int(pool.channel[v]))
+            if bend != pool.bend[v]:
+                self._set_bend(v, bend)
+                pool.update_tables(v, v + 1)
+                self._weights(v, v + 1, pool.g)
+                self._g_next[v] = pool.g[v]
+
+    # -- live parameters ----------------------------------------------------------
+    def _step_pickups(self) -> bool:
+        """Move the pickups one smoothing step towards their targets; True when they moved."""
+        target = self.settings.pickups
+        now = self._pickups_now
+        moved = False
+        if len(now) != len(target) or any(
+            a["sensing"] != b["sensing"] or a["polarity"] != b["polarity"] for a, b in zip(now, target, strict=False)
+        ):
+            self._pickups_now = [dict(p) for p in target]
+            moved = True
+        else:
+            for a, b in zip(now, target, strict=True):
+                for f in ("position", "width", "level_db"):
+                    diff = b[f] - a[f]
+                    if diff != 0.0:
+                        step = diff * self._alpha
+                        a[f] = b[f] if abs(diff - step) < 1e-7 * max(1.0, abs(b[f])) else a[f] + step
+                        moved = True
+        if not moved:
+            return False
+        self._prepare_pickups()
+        self._weights(0, self.pool.n_active, self._g_next)
+        return True
+
+    def _finish(self) -> np.ndarray:
+        out = self._out
+        out *= OUTPUT_SCALE
+        if self._elec is not None:
+            self._elec.process(out)
+        g0 = self._gain
+        g1 = g0 + (self._gain_target - g0) * self._alpha
+        if abs(g1 - self._gain_target) < 1e-6 * self._gain_target:
+            g1 = self._gain_target
+        if g0 == g1:
+            out *= g1
+        else:
+            np.multiply(self._ramp, g1 - g0, out=self._gain_ramp)
+            self._gain_ramp += g0
+            out *= self._gain_ramp
+        self._gain = g1
+        self._dc.process(out)
+        if not np.all(np.isfinite(out)):
+            self._drop_bad_voices()
+            out[:] = 0.0
+            for f in (self._dc, self._elec):
+                if f is not None:
+                    f.reset()
+        self.limiter.process(out)
+        st = self.stats
+        st.peak = float(np.max(np.abs(out)))
+        st.gain_reduction_db = self.limiter.gain_reduction_db
+        st.clipped = self.limiter.clipped
+        st.blocks += 1
+        return out
+
+    def _drop_bad_voices(self) -> None:
+        pool = self.pool
+        bad = ~np.all(np.isfinite(pool.s[: pool.n_active]), axis=1)
+        for v in sorted(np.flatnonzero(bad), reverse=True):
+            pool.retire(int(v))
+            self.stats.dropped_bad += 1
+
+    def _retire(self) -> None:
+        pool = self.pool
+        if pool.n_active:
+            bound = pool.bound() * OUTPUT_SCALE * max(self._gain, 1.0)
+            dead = np.flatnonzero(~(bound >= RETIRE_LEVEL))  # catches NaN too
+            for v in dead[::-1]:
+                if not np.isfinite(bound[v]):
+                    self.stats.dropped_bad += 1
+                pool.retire(int(v))
+        self.stats.voices = pool.n_active
+        if self._pending_rebuild is not None and pool.n_active == 0:
+            self._pending_rebuild = None
+            self._build_pool()
+            self._prepare_notes()
+            self._prepare_electronics()
+            self._gain_target = 10 ** (self.settings.get("output.gain_db") / 20)
+
+    # -- what the meters and UI read ----------------------------------------------
+    def loudest_voice(self) -> int:
+        """Slot of the loudest active voice, or -1."""
+        if self.pool.n_active == 0:
+            return -1
+        return int(np.argmax(self.pool.bound()))
+
+    def mode_levels(self, v: int) -> np.ndarray:
+        """|g s| of each mode of slot v in output units (before electronics and gain)."""
+        return np.abs(self.pool.g[v] * self.pool.s[v]) * OUTPUT_SCALE
+
+    def sounding(self) -> int:
+        pool = self.pool
+        return int(np.count_nonzero(pool.state[: pool.n_active] != FADING))
+
+    @property
+    def voice_states(self) -> np.ndarray:
+        return self.pool.state[: self.pool.n_active]
+
+
+__all__ = ["CEILING", "Engine", "EngineStats", "Event", "FREE", "PICKUP_FIELDS"]

@@ -1,0 +1,195 @@
+"""The parameter schema: one source of truth for presets, the command line, the UI
+and controller mapping.
+
+Every parameter has a canonical dotted name, a kind, a unit, a default, a range and
+a one-line help. Pickups are a list: their fields are addressed as
+``pickup.<index>.<field>`` (for example ``pickup.0.position``).
+"""
+
+from __future__ import annotations
+
+import math
+import re
+from dataclasses import dataclass, field
+from typing import Any
+
+MAX_PICKUPS = 4
+MAX_SHAPE_POINTS = 64
+
+
+@dataclass(frozen=True)
+class Param:
+    """One parameter: what it is, in which unit, what values it may take.
+
+    ``kind`` is ``"float"``, ``"int"``, ``"choice"`` or ``"shape"`` (a list of
+    [x, y] breakpoints). ``live`` parameters act on ringing notes at once (smoothed);
+    the others apply to the next note. ``structural`` ones rebuild the voice pool.
+    """
+
+    name: str
+    kind: str
+    default: Any
+    unit: str = ""
+    low: float | None = None
+    high: float | None = None
+    choices: tuple = ()
+    help: str = ""
+    live: bool = False
+    structural: bool = False
+    log_scale: bool = False
+    extra: dict = field(default_factory=dict, compare=False)
+
+    def check(self, value: Any) -> Any:
+        """Return ``value`` normalised to this parameter's type, or raise ValueError.
+
+        The message says what is allowed; the caller adds the name and the source.
+        """
+        if self.kind == "float":
+            if isinstance(value, bool) or not isinstance(value, int | float):
+                raise ValueError(f"expected a number, got {_describe(value)}")
+            value = float(value)
+            if not math.isfinite(value):
+                raise ValueError(f"expected a finite number, got {value!r}")
+            self._check_range(value)
+            return value
+        if self.kind == "int":
+            if isinstance(value, bool) or not isinstance(value, int):
+                if isinstance(value, float) and value.is_integer():
+                    value = int(value)
+                else:
+                    raise ValueError(f"expected a whole number, got {_describe(value)}")
+            if self.choices and value not in self.choices:
+                raise ValueError(f"expected one of {', '.join(map(str, self.choices))}, got {value}")
+            self._check_range(value)
+            return int(value)
+        if self.kind == "choice":
+            if value not in self.choices:
+                allowed = ", ".join(repr(c) for c in self.choices)
+                raise ValueError(f"expected one of {allowed}, got {_describe(value)}")
+            return value
+        if self.kind == "shape":
+            return _check_shape(value)
+        raise AssertionError(f"unknown kind {self.kind}")
+
+    def _check_range(self, value: float) -> None:
+        if self.low is not None and value < self.low or self.high is not None and value > self.high:
+            raise ValueError(f"{value:g} is out of range [{self.low:g}, {self.high:g}] {self.unit}".rstrip())
+
+    def describe_range(self) -> str:
+        """Human-readable allowed values, for help screens and error messages."""
+        if self.kind == "choice" or self.choices:
+            return " | ".join(str(c) for c in self.choices)
+        if self.kind == "shape":
+            return f"list of up to {MAX_SHAPE_POINTS} [x, y] pairs, 0 < x < 1"
+        return f"{self.low:g} .. {self.high:g} {self.unit}".rstrip()
+
+
+def _describe(value: Any) -> str:
+    return f"{type(value).__name__} {value!r}"[:80]
+
+
+def _check_shape(value: Any) -> tuple[tuple[float, float], ...]:
+    if not isinstance(value, list | tuple):
+        raise ValueError(f"expected a list of [x, y] pairs, got {_describe(value)}")
+    if len(value) > MAX_SHAPE_POINTS:
+        raise ValueError(f"at most {MAX_SHAPE_POINTS} breakpoints, got {len(value)}")
+    points = []
+    for item in value:
+        if not isinstance(item, list | tuple) or len(item) != 2:
+            raise ValueError(f"each breakpoint must be [x, y], got {_describe(item)}")
+        x, y = item
+        for v in (x, y):
+            if isinstance(v, bool) or not isinstance(v, int | float) or not math.isfinite(v):
+                raise ValueError(f"breakpoint values must be finite numbers, got {_describe(v)}")
+        if not 0.0 < x < 1.0:
+            raise ValueError(f"breakpoint x must lie strictly between 0 and 1, got {x:g}")
+        if abs(y) > 1.0:
+            raise ValueError(f"breakpoint y must lie in [-1, 1], got {y:g}")
+        points.append((float(x), float(y)))
+    xs = [p[0] for p in points]
+    if len(set(xs)) != len(xs):
+        raise ValueError("breakpoint x values must be distinct")
+    return tuple(sorted(points))
+
+
+_PARAMS = [
+    Param("tuning.a4_hz", "float", 440.0, "Hz", 400.0, 480.0, help="Pitch of MIDI note 69 (A4)."),
+    Param("string.modes", "int", 96, "", 1, 512, structural=True,
+          help="Most modes per voice; modes at or above 0.45 x the sample rate are left out."),
+    Param("string.inharmonicity", "float", 1.0e-4, "", 0.0, 0.01, log_scale=True,
+          help="Stiffness coefficient B in f_k = k f0 sqrt(1 + B k^2)."),
+    Param("string.t60_low", "float", 6.0, "s", 0.05, 60.0, log_scale=True,
+          help="T60 of a partial at 100 Hz."),
+    Param("string.t60_high", "float", 1.5, "s", 0.01, 60.0, log_scale=True,
+          help="T60 of a partial at 2000 Hz (at most t60_low)."),
+    Param("string.release", "float", 0.15, "s", 0.01, 10.0, log_scale=True,
+          help="T60 after note-off (a muted string), unless the sustain pedal holds it."),
+    Param("string.scale_length_mm", "float", 648.0, "mm", 100.0, 2000.0,
+          help="Speaking length from bridge to nut, for showing positions in mm."),
+    Param("excitation.kind", "choice", "pluck", choices=("pluck", "strike"),
+          help="pluck: initial displacement; strike: initial velocity."),
+    Param("excitation.position", "float", 0.2, "", 0.01, 0.99,
+          help="Where the string is plucked or struck, as a fraction of its length from the bridge."),
+    Param("excitation.width", "float", 0.01, "", 0.0, 0.5,
+          help="Contact width of finger, plectrum or hammer, as a fraction of the length."),
+    Param("excitation.shape", "shape", (),
+          help="Optional initial profile as [x, y] breakpoints; replaces the triangle or contact."),
+    Param("electronics.resonance_hz", "float", 4200.0, "Hz", 0.0, 20000.0, live=True,
+          help="Resonance of the coil and cable low-pass (0, or 200 Hz and up); 0 bypasses it unless a coil is set."),
+    Param("electronics.q", "float", 2.0, "", 0.3, 30.0, live=True, log_scale=True,
+          help="Quality factor of the resonance."),
+    Param("electronics.inductance_h", "float", 0.0, "H", 0.0, 20.0, live=True,
+          help="Coil inductance; 0 = off, else at least 0.01 H and f_r, Q come from the circuit values."),
+    Param("electronics.resistance_ohm", "float", 6000.0, "ohm", 0.0, 50000.0, live=True,
+          help="Coil resistance (circuit mode)."),
+    Param("electronics.capacitance_f", "float", 600e-12, "F", 1e-12, 1e-7, live=True, log_scale=True,
+          help="Coil plus cable capacitance (circuit mode)."),
+    Param("electronics.load_ohm", "float", 1.0e6, "ohm", 1.0e3, 1.0e9, live=True, log_scale=True,
+          help="Load resistance of the input the pickup drives (circuit mode)."),
+    Param("output.gain_db", "float", -6.0, "dB", -60.0, 12.0, live=True,
+          help="Output gain before the limiter (whose ceiling is -1 dBFS)."),
+    Param("voices", "int", 16, "", 1, 128, structural=True, help="Polyphony: voices sounding at once."),
+]
+
+PICKUP_FIELDS: dict[str, Param] = {
+    p.name.split(".")[-1]: p
+    for p in [
+        Param("pickup.N.position", "float", 0.15, "", 0.005, 0.995, live=True,
+              help="Centre of the pickup, as a fraction of the length from the bridge."),
+        Param("pickup.N.width", "float", 0.02, "", 0.0, 0.5, live=True,
+              help="Aperture: the width of string the pickup senses, as a fraction of the length."),
+        Param("pickup.N.sensing", "choice", "velocity", choices=("velocity", "displacement"), live=True,
+              help="velocity: magnetic (weights mode k by its frequency); displacement: optical."),
+        Param("pickup.N.level_db", "float", 0.0, "dB", -60.0, 12.0, live=True, help="Pickup level."),
+        Param("pickup.N.polarity", "int", 1, "", -1, 1, choices=(1, -1), live=True,
+              help="+1 or -1: a reversed pickup subtracts from the others."),
+    ]
+}
+
+PARAMS: dict[str, Param] = {p.name: p for p in _PARAMS}
+TOP_LEVEL_TEXT = ("name", "description")
+_PICKUP_NAME = re.compile(r"^pickup\.(\d+)\.([a-z_0-9]+)$")
+
+
+def lookup(name: str) -> tuple[Param, int | None]:
+    """(Param, pickup index or None) for a canonical dotted name; KeyError if unknown."""
+    if name in PARAMS:
+        return PARAMS[name], None
+    m = _PICKUP_NAME.match(name)
+    if m and m.group(2) in PICKUP_FIELDS:
+        index = int(m.group(1))
+        if index >= MAX_PICKUPS:
+            raise KeyError(f"{name}: at most {MAX_PICKUPS} pickups (index 0..{MAX_PICKUPS - 1})")
+        return PICKUP_FIELDS[m.group(2)], index
+    raise KeyError(f"unknown parameter {name!r}")
+
+
+def all_names(n_pickups: int) -> list[str]:
+    """Every canonical name for a setting with ``n_pickups`` pickups, in schema order."""
+    names = [n for n in PARAMS if n != "voices"]
+    names += [f"pickup.{i}.{f}" for i in range(n_pickups) for f in PICKUP_FIELDS]
+    return names + ["voices"]
+
+
+def default_pickup() -> dict[str, Any]:
+    return {f: p.default for f, p in PICKUP_FIELDS.items()}

@@ -1,0 +1,258 @@
+"""Settings: one validated, immutable value for every schema parameter.
+
+A :class:`Settings` is built from defaults, a preset's nested tables or dotted
+``name=value`` changes, and is checked as a whole (single values against the
+schema, then the rules that tie values together). Invalid input raises
+:class:`SettingsError`, which names the source, the key, the value and what is
+allowed; nothing partial is ever returned.
+"""
+
+from __future__ import annotations
+
+import math
+import tomllib
+from collections.abc import Iterable, Mapping
+from dataclasses import dataclass, replace
+from typing import Any
+
+from rtvoice.engine.schema import (
+    MAX_PICKUPS,
+    PARAMS,
+    PICKUP_FIELDS,
+    TOP_LEVEL_TEXT,
+    all_names,
+    default_pickup,
+    lookup,
+)
+from rtvoice.physics.damping import loss_coefficients
+
+MAX_TEXT = 2000
+MIN_RESONANCE_HZ = 200.0  # pickup resonances lie in the kHz range; 0 bypasses the filter
+MIN_INDUCTANCE_H = 0.01  # below this a "coil" is no pickup; 0 switches the circuit model off
+
+
+class SettingsError(ValueError):
+    """A value that the schema does not allow, with where it came from."""
+
+    def __init__(self, key: str, value: Any, reason: str, source: str = ""):
+        self.key, self.value, self.reason, self.source = key, value, reason, source
+        where = f"{source}: " if source else ""
+        shown = repr(value)
+        shown = shown if len(shown) <= 60 else shown[:57] + "..."
+        super().__init__(f"{where}{key} = {shown}: {reason}")
+
+
+@dataclass(frozen=True)
+class Settings:
+    """Every parameter's value. Use :meth:`get` with canonical dotted names."""
+
+    values: Mapping[str, Any]
+    pickups: tuple[Mapping[str, Any], ...]
+    name: str = ""
+    description: str = ""
+    controls: tuple[Mapping[str, Any], ...] | None = None  # [[control]] map; None: the default map
+
+    # -- construction -------------------------------------------------------------
+    @classmethod
+    def defaults(cls) -> Settings:
+        values = {n: p.default for n, p in PARAMS.items()}
+        return cls(values, (default_pickup(),))
+
+    @classmethod
+    def from_nested(cls, data: Mapping[str, Any], source: str = "", base: Settings | None = None) -> Settings:
+        """Settings from preset tables (``[string]``, ``[[pickup]]``, ...) over ``base``."""
+        base = base or cls.defaults()
+        changes: dict[str, Any] = {}
+        name, description = base.name, base.description
+        pickups: list[dict[str, Any]] | None = None
+        controls = base.controls
+        for top, value in data.items():
+            if top in TOP_LEVEL_TEXT:
+                if not isinstance(value, str) or len(value) > MAX_TEXT:
+                    raise SettingsError(top, value, f"expected text of at most {MAX_TEXT} characters", source)
+                name, description = (value, description) if top == "name" else (name, value)
+            elif top == "voices":
+                changes["voices"] = value
+            elif top == "pickup":
+                pickups = _read_pickups(value, source)
+            elif top == "control":
+                from rtvoice.engine.controls import check_entries
+
+                controls = tuple(check_entries(value, source))
+            elif isinstance(value, Mapping):
+                for sub, v in value.items():
+                    changes[f"{top}.{sub}"] = v
+            else:
+                raise SettingsError(top, value, "unknown key", source)
+        if pickups is not None:
+            for i, item in enumerate(pickups):
+                for f, v in item.items():
+                    changes[f"pickup.{i}.{f}"] = v
+        settings = base._changed(changes, source, name, description, n_pickups=None if pickups is None else len(pickups))
+        return settings if controls is base.controls else replace(settings, controls=controls)
+
+    @classmethod
+    def from_toml_text(cls, text: str, source: str = "") -> Settings:
+        try:
+            data = tomllib.loads(text)
+        except tomllib.TOMLDecodeError as err:
+            raise SettingsError("(file)", "", f"not valid TOML: {err}", source) from None
+        return cls.from_nested(data, source)
+
+    def with_values(self, changes: Mapping[str, Any], source: str = "") -> Settings:
+        """A copy with dotted-name ``changes`` applied; pickups may grow by appending index n."""
+        return self._changed(dict(changes), source, self.name, self.description)
+
+    def with_pickup_count(self, n: int) -> Settings:
+        if not 1 <= n <= MAX_PICKUPS:
+            raise SettingsError("pickup", n, f"between 1 and {MAX_PICKUPS} pickups", "")
+        pickups = list(self.pickups[:n])
+        while len(pickups) < n:
+            pickups.append(default_pickup())
+        return Settings(self.values, tuple(pickups), self.name, self.description, self.controls)
+
+    def renamed(self, name: str, description: str | None = None) -> Settings:
+        return Settings(self.values, self.pickups, name, self.description if description is None else description,
+                        self.controls)
+
+    def _changed(self, changes, source, name, description, n_pickups=None) -> Settings:
+        values = dict(self.values)
+        pickups = [dict(p) for p in self.pickups]
+        if n_pickups is not None:
+            pickups = pickups[:n_pickups] + [default_pickup() for _ in range(n_pickups - len(pickups))]
+        for key, raw in changes.items():
+            try:
+                param, index = lookup(key)
+            except KeyError as err:
+                raise SettingsError(key, raw, str(err.args[0]).split(": ", 1)[-1], source) from None
+            try:
+                value = param.check(raw)
+            except ValueError as err:
+                raise SettingsError(key, raw, f"{err} (allowed: {param.describe_range()})", source) from None
+            if index is None:
+                values[key] = value
+                continue
+            if index > len(pickups):
+                raise SettingsError(key, raw, f"pickup {index} needs pickup {len(pickups)} first", source)
+            if index == len(pickups):
+                pickups.append(default_pickup())
+            pickups[index][key.rsplit(".", 1)[1]] = value
+        if not pickups:
+            raise SettingsError("pickup", [], "at least one pickup is needed", source)
+        settings = Settings(values, tuple(pickups), name, description, self.controls)
+        settings._check_together(source)
+        return settings
+
+    def _check_together(self, source: str) -> None:
+        lo, hi = self.values["string.t60_low"], self.values["string.t60_high"]
+        try:
+            loss_coefficients(lo, hi)
+        except ValueError as err:
+            raise SettingsError("string.t60_high", hi, str(err), source) from None
+        f_r = self.values["electronics.resonance_hz"]
+        if 0.0 < f_r < MIN_RESONANCE_HZ:
+            raise SettingsError("electronics.resonance_hz", f_r,
+                                f"use 0 (bypass) or at least {MIN_RESONANCE_HZ:g} Hz", source)
+        ind = self.values["electronics.inductance_h"]
+        if 0.0 < ind < MIN_INDUCTANCE_H:
+            raise SettingsError("electronics.inductance_h", ind,
+                                f"use 0 (circuit off) or at least {MIN_INDUCTANCE_H:g} H", source)
+
+    # -- reading ------------------------------------------------------------------
+    def get(self, name: str) -> Any:
+        param, index = lookup(name)
+        if index is None:
+            return self.values[name]
+        if index >= len(self.pickups):
+            raise KeyError(f"{name}: there are {len(self.pickups)} pickups")
+        return self.pickups[index][name.rsplit(".", 1)[1]]
+
+    def __getitem__(self, name: str) -> Any:
+        return self.get(name)
+
+    def names(self) -> list[str]:
+        return all_names(len(self.pickups))
+
+    def flat(self) -> dict[str, Any]:
+        """Every canonical name with its value."""
+        return {n: self.get(n) for n in self.names()}
+
+    def differences(self, other: Settings) -> list[str]:
+        """Canonical names whose values differ (pickup count changes show as ``pickup``)."""
+        diff = [n for n in PARAMS if self.values[n] != other.values[n]]
+        if len(self.pickups) != len(other.pickups):
+            diff.append("pickup")
+        for i, (a, b) in enumerate(zip(self.pickups, other.pickups, strict=False)):
+            diff += [f"pickup.{i}.{f}" for f in PICKUP_FIELDS if a[f] != b[f]]
+        return diff
+
+    def to_nested(self) -> dict[str, Any]:
+        """Preset tables for writing as TOML (every value, so a preset is complete)."""
+        out: dict[str, Any] = {}
+        if self.name:
+            out["name"] = self.name
+        if self.description:
+            out["description"] = self.description
+        out["voices"] = self.values["voices"]
+        for key, value in self.values.items():
+            if key == "voices":
+                continue
+            table, sub = key.split(".", 1)
+            if PARAMS[key].kind == "shape":
+                value = [list(p) for p in value]
+            out.setdefault(table, {})[sub] = value
+        out["pickup"] = [dict(p) for p in self.pickups]
+        if self.controls is not None:
+            out["control"] = [dict(c) for c in self.controls]
+        return out
+
+
+def _read_pickups(value: Any, source: str) -> list[dict[str, Any]]:
+    if not isinstance(value, list) or not all(isinstance(v, Mapping) for v in value):
+        raise SettingsError("pickup", value, "expected [[pickup]] tables", source)
+    if not 1 <= len(value) <= MAX_PICKUPS:
+        raise SettingsError("pickup", f"{len(value)} tables", f"between 1 and {MAX_PICKUPS} pickups", source)
+    for i, item in enumerate(value):
+        for f in item:
+            if f not in PICKUP_FIELDS:
+                raise SettingsError(f"pickup.{i}.{f}", item[f], "unknown key", source)
+    return [dict(v) for v in value]
+
+
+def parse_assignment(text: str) -> tuple[str, Any]:
+    """Parse ``KEY=VALUE`` from the command line into (name, typed value).
+
+    VALUE is read as a TOML value when it parses as one (numbers, quoted strings,
+    lists), else as a bare word; positions may carry an ``mm`` suffix, which the
+    caller converts with the scale length.
+    """
+    if "=" not in text:
+        raise SettingsError(text, "", "expected KEY=VALUE")
+    key, raw = (s.strip() for s in text.split("=", 1))
+    try:
+        lookup(key)
+    except KeyError as err:
+        raise SettingsError(key, raw, str(err.args[0]).split(": ", 1)[-1]) from None
+    try:
+        value = tomllib.loads(f"v = {raw}")["v"]
+    except tomllib.TOMLDecodeError:
+        value = raw
+    if isinstance(value, float) and not math.isfinite(value):
+        raise SettingsError(key, raw, "expected a finite number")
+    return key, value
+
+
+def apply_assignments(settings: Settings, assignments: Iterable[str], source: str = "--set") -> Settings:
+    """Apply ``KEY=VALUE`` strings in order; an ``mm`` suffix on a position uses the scale length."""
+    changes: dict[str, Any] = {}
+    scale_mm = settings.get("string.scale_length_mm")
+    for text in assignments:
+        key, value = parse_assignment(text)
+        if isinstance(value, str) and value.endswith("mm") and (key.endswith(".position") or key.endswith(".width")):
+            try:
+                mm = float(value[:-2])
+            except ValueError:
+                raise SettingsError(key, value, "expected a number of millimetres like 120mm", source) from None
+            value = mm / changes.get("string.scale_length_mm", scale_mm)
+        changes[key] = value
+    return settings.with_values(changes, source)

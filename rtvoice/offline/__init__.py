@@ -1,0 +1,1 @@
+"""Offline rendering: Standard MIDI Files and single notes to WAV files."""

@@ -1,0 +1,128 @@
+"""``rtvoice render`` and ``rtvoice presets``."""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from pathlib import Path
+
+import numpy as np
+
+from rtvoice.engine.presets import (
+    PresetError,
+    list_presets,
+    load_preset,
+    preset_text,
+    read_preset_file,
+)
+from rtvoice.engine.settings import Settings, apply_assignments
+from rtvoice.offline.midifile import read_midi_events
+from rtvoice.offline.render import note_events, render_events, text_progress
+from rtvoice.offline.wav import write_wav
+
+PROGRESS_ABOVE_S = 5.0
+
+
+def register(sub: argparse._SubParsersAction) -> None:
+    r = sub.add_parser("render", help="render a MIDI file or one note to a WAV file")
+    src = r.add_mutually_exclusive_group(required=True)
+    src.add_argument("midifile", nargs="?", help="Standard MIDI File (type 0 or 1)")
+    src.add_argument("--note", type=_midi_note, help="render one MIDI note (0-127) instead")
+    r.add_argument("--velocity", type=_velocity, default=100, help="note-on velocity 1-127 (default 100)")
+    r.add_argument("--seconds", type=_seconds, default=2.0, help="how long --note is held (default 2)")
+    r.add_argument("-o", "--output", required=True, help="WAV file to write (32-bit float)")
+    add_sound_options(r, block=1024)
+    r.add_argument("--tail-cap", type=_seconds, default=30.0, help="longest ring-out after the last event, s")
+    r.set_defaults(func=run_render)
+
+    p = sub.add_parser("presets", help="list, show or check presets")
+    psub = p.add_subparsers(dest="action", metavar="ACTION", required=True, parser_class=type(p))
+    psub.add_parser("list", help="list factory and user presets").set_defaults(func=run_list)
+    show = psub.add_parser("show", help="print a preset as complete TOML")
+    show.add_argument("name", help="preset name or path to a .toml file")
+    show.set_defaults(func=run_show)
+    check = psub.add_parser("check", help="validate preset files")
+    check.add_argument("files", nargs="+", help=".toml files")
+    check.set_defaults(func=run_check)
+
+
+def add_sound_options(parser: argparse.ArgumentParser, block: int = 256) -> None:
+    """--preset, --set, --rate and --block, shared by the commands that make sound."""
+    parser.add_argument("--preset", help="preset name or path to a .toml file")
+    parser.add_argument("--set", action="append", default=[], metavar="KEY=VALUE",
+                        help="change one parameter by its dotted name (repeatable)")
+    parser.add_argument("--rate", type=_rate, default=48000, help="sample rate in Hz (default 48000)")
+    parser.add_argument("--block", type=_block, default=block, help=f"block size in frames (default {block})")
+
+
+def settings_from_args(args: argparse.Namespace) -> Settings:
+    settings = load_preset(args.preset) if args.preset else Settings.defaults()
+    return apply_assignments(settings, args.set)
+
+
+def run_render(args: argparse.Namespace) -> int:
+    settings = settings_from_args(args)
+    out = Path(args.output)
+    if not out.parent.is_dir() and str(out.parent):
+        raise PresetError(f"{out.parent}: no such folder for the output file")
+    if args.midifile:
+        events = read_midi_events(args.midifile)
+        if not events:
+            raise PresetError(f"{args.midifile}: the file holds no notes or controllers")
+    else:
+        events = note_events(args.note, args.velocity, args.seconds)
+    length_s = events[-1][0] if events else 0.0
+    progress = text_progress(f"rendering {out.name}") if length_s > PROGRESS_ABOVE_S and sys.stderr.isatty() else None
+    audio = render_events(events, settings, args.rate, args.block, args.tail_cap, progress)
+    write_wav(out, audio.astype(np.float32), args.rate)
+    peak = float(np.max(np.abs(audio))) if audio.size else 0.0
+    peak_db = 20 * np.log10(peak) if peak > 0 else float("-inf")
+    print(f"wrote {out} ({audio.size / args.rate:.2f} s, peak {peak_db:.1f} dBFS)")
+    return 0
+
+
+def run_list(args: argparse.Namespace) -> int:
+    for info in list_presets():
+        try:
+            desc = read_preset_file(info.path).description
+        except (PresetError, ValueError) as err:
+            desc = f"(invalid: {err})"
+        print(f"{info.name:24s} {info.origin:8s} {desc}")
+    return 0
+
+
+def run_show(args: argparse.Namespace) -> int:
+    sys.stdout.write(preset_text(load_preset(args.name)))
+    return 0
+
+
+def run_check(args: argparse.Namespace) -> int:
+    bad = 0
+    for name in args.files:
+        try:
+            read_preset_file(name)
+            print(f"ok    {name}")
+        except (PresetError, ValueError) as err:
+            bad += 1
+            print(f"error {err}")
+    return 2 if bad else 0
+
+
+def _ranged(kind, low, high, what):
+    def parse(text: str):
+        try:
+            value = kind(text)
+        except ValueError:
+            raise argparse.ArgumentTypeError(f"{what} must be a number, got {text!r}") from None
+        if not (low <= value <= high):
+            raise argparse.ArgumentTypeError(f"{what} must be between {low} and {high}, got {text}")
+        return value
+
+    return parse
+
+
+_midi_note = _ranged(int, 0, 127, "MIDI note")
+_velocity = _ranged(int, 1, 127, "velocity")
+_seconds = _ranged(float, 0.0, 3600.0, "seconds")
+_rate = _ranged(int, 8000, 192000, "sample rate")
+_block = _ranged(int, 16, 4096, "block size")

@@ -1,0 +1,75 @@
+"""What a pickup hears of each string mode.
+
+A pickup centred at x over an aperture of width w averages the mode shape
+sin(k pi x) over the aperture, which gives sin(k pi x) sinc(k pi w / 2). A magnetic
+pickup senses string velocity (its EMF follows dy/dt), so mode k is further
+weighted by its angular frequency; a displacement sensor (optical, capacitive) is
+not.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterable, Mapping
+
+import numpy as np
+
+
+def aperture_weights(k: np.ndarray, position: float, width: float = 0.0) -> np.ndarray:
+    """sin(k pi x) sinc(k pi w / 2): the spatial weight of mode k for one pickup."""
+    k = np.asarray(k, dtype=float)
+    spatial = np.sin(k * np.pi * float(position))
+    return spatial * np.sinc(k * float(width) / 2.0) if width > 0 else spatial
+
+
+def first_aperture_null(width: float) -> float:
+    """Harmonic number (possibly fractional) of the first null of a uniform aperture.
+
+    sinc(k pi w / 2) first vanishes at k pi w / 2 = pi, i.e. k = 2 / w.
+    """
+    return 2.0 / float(width)
+
+
+def level_gain(level_db: float, polarity: int) -> float:
+    """Linear gain of a pickup from its level in dB and its polarity (+1 or -1)."""
+    return float(polarity) * 10.0 ** (float(level_db) / 20.0)
+
+
+def spatial_sums(k: np.ndarray, pickups: Iterable[Mapping]) -> tuple[np.ndarray, np.ndarray]:
+    """Level-weighted aperture weights summed over pickups, split by sensing.
+
+    Returns (displacement_sum, velocity_sum), each one value per harmonic in ``k``.
+    Each pickup is a mapping with ``position``, ``width``, ``sensing``, ``level_db``
+    and ``polarity``.
+    """
+    k = np.asarray(k, dtype=float)
+    disp = np.zeros(k.shape)
+    vel = np.zeros(k.shape)
+    for p in pickups:
+        w = level_gain(p["level_db"], p["polarity"]) * aperture_weights(k, p["position"], p["width"])
+        if p["sensing"] == "velocity":
+            vel += w
+        elif p["sensing"] == "displacement":
+            disp += w
+        else:
+            raise ValueError(f"unknown pickup sensing {p['sensing']!r}")
+    return disp, vel
+
+
+def pickup_weights(
+    k: np.ndarray,
+    pickups: Iterable[Mapping],
+    sigma_per_s: np.ndarray,
+    omega_rad_s: np.ndarray,
+    omega_ref_rad_s: float,
+) -> np.ndarray:
+    """Complex weight of each mode's complex amplitude in the summed pickup signal.
+
+    A mode with complex amplitude c moves as Re(c e^{(-sigma + i w) t}); its velocity
+    is Re(c (-sigma + i w) e^{...}). A velocity pickup therefore weights it by
+    (-sigma + i w) / w_ref, where ``omega_ref_rad_s`` (the note's fundamental) keeps
+    levels comparable across the keyboard while the ratios between harmonics stay
+    the physical ones.
+    """
+    disp, vel = spatial_sums(k, pickups)
+    deriv = (-np.asarray(sigma_per_s) + 1j * np.asarray(omega_rad_s)) / omega_ref_rad_s
+    return disp + vel * deriv

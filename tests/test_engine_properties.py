@@ -1,0 +1,77 @@
+"""Properties that must hold for any parameters and any note stream (hypothesis)."""
+
+import numpy as np
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+
+from rtvoice.engine.output import CEILING
+from rtvoice.engine.renderer import Engine
+from rtvoice.engine.schema import PARAMS, PICKUP_FIELDS
+from rtvoice.engine.settings import Settings, SettingsError
+
+
+def param_value(param):
+    if param.kind == "float":
+        return st.floats(param.low, param.high, allow_nan=False)
+    if param.kind == "int":
+        return st.sampled_from(param.choices) if param.choices else st.integers(int(param.low), int(param.high))
+    if param.kind == "choice":
+        return st.sampled_from(param.choices)
+    points = st.tuples(st.floats(0.01, 0.99), st.floats(-1, 1))
+    return st.lists(points, max_size=6, unique_by=lambda p: round(p[0], 6))
+
+
+SMALL = {"voices": st.integers(1, 12), "string.modes": st.integers(1, 128)}
+
+
+@st.composite
+def any_settings(draw):
+    changes = {}
+    for name, param in PARAMS.items():
+        if draw(st.booleans()):
+            changes[name] = draw(SMALL.get(name, param_value(param)))
+    for i in range(draw(st.integers(1, 3))):
+        for field, param in PICKUP_FIELDS.items():
+            changes[f"pickup.{i}.{field}"] = draw(param_value(param))
+    while True:
+        try:
+            return Settings.defaults().with_values(changes)
+        except SettingsError as err:
+            # Combinations the cross-checks forbid (t60_high above t60_low, a sub-0.01 H coil): drop that key.
+            changes.pop(err.key, None)
+            if err.key == "string.t60_high":
+                changes.pop("string.t60_low", None)
+
+
+midi_message = st.one_of(
+    st.tuples(st.sampled_from([0x90, 0x80]), st.integers(0, 127), st.integers(0, 127)),
+    st.tuples(st.just(0xB0), st.sampled_from([6, 38, 64, 100, 101, 120, 121, 123, 1, 74]), st.integers(0, 127)),
+    st.tuples(st.just(0xE0), st.integers(0, 127), st.integers(0, 127)),
+    st.tuples(st.just(0xD0), st.integers(0, 127), st.just(0)),
+)
+
+
+@settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(s=any_settings(), block=st.sampled_from([32, 64, 128, 256]),
+       stream=st.lists(st.tuples(st.integers(0, 40), st.integers(0, 255), midi_message), max_size=60))
+def test_every_block_is_finite_and_under_the_ceiling(s, block, stream):
+    engine = Engine(s, 48000, block)
+    by_block: dict[int, list] = {}
+    for blk, offset, (status, d1, d2) in stream:
+        by_block.setdefault(blk, []).append((offset % block, status | (d1 % 16 if status == 0xD0 else 0), d1, d2))
+    for i in range(48):
+        events = sorted(by_block.get(i, []))
+        y = engine.render(events)
+        assert np.all(np.isfinite(y))
+        assert np.max(np.abs(y)) <= CEILING
+
+
+@settings(max_examples=25, deadline=None)
+@given(gain=st.floats(-6, 12), notes=st.lists(st.integers(20, 100), min_size=1, max_size=24))
+def test_loud_chords_stay_under_the_ceiling(gain, notes):
+    s = Settings.defaults().with_values({"output.gain_db": gain, "voices": 24})
+    engine = Engine(s, 48000, 128)
+    events = [(i % 128, 0x90, n, 127) for i, n in enumerate(notes)]
+    for i in range(30):
+        y = engine.render(events if i == 0 else ())
+        assert np.max(np.abs(y)) <= CEILING and np.all(np.isfinite(y))
