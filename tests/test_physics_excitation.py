@@ -42,7 +42,9 @@ def test_midpoint_pluck_odd_only_falling_as_inverse_square():
     np.testing.assert_allclose(np.abs(a[::2]) * odd**2, 8 / np.pi**2, rtol=1e-12)
 
 
-@pytest.mark.parametrize(("p", "k", "expected"), [(0.2, 1, 0.744439), (0.2, 5, 0.0), (0.25, 1, 0.764212), (0.25, 4, 0.0)])
+@pytest.mark.parametrize(
+    ("p", "k", "expected"), [(0.2, 1, 0.744439), (0.2, 5, 0.0), (0.25, 1, 0.764212), (0.25, 4, 0.0)]
+)
 def test_pluck_values_other_positions(p, k, expected):
     # Fletcher & Rossing 1998 ch. 2, values calculated from the closed form (shared references).
     assert pluck_amplitudes(np.array([k]), p)[0] == pytest.approx(expected, abs=1e-6)

@@ -88,7 +88,8 @@ class Settings:
             for i, item in enumerate(pickups):
                 for f, v in item.items():
                     changes[f"pickup.{i}.{f}"] = v
-        settings = base._changed(changes, source, name, description, n_pickups=None if pickups is None else len(pickups))
+        n_pickups = None if pickups is None else len(pickups)
+        settings = base._changed(changes, source, name, description, n_pickups=n_pickups)
         return settings if controls is base.controls else replace(settings, controls=controls)
 
     @classmethod

@@ -13,7 +13,6 @@ import math
 
 import numpy as np
 
-
 MIN_Q, MAX_Q = 0.05, 100.0  # what the digital filter accepts; circuits outside are clamped
 MIN_RESONANCE_HZ = 20.0
 
@@ -49,7 +48,8 @@ def lowpass_biquad(resonance_hz: float, q: float, sample_rate_hz: float) -> tupl
     magnitude at DC, at the resonance region and at Nyquist: the "matched"
     second-order design of M. Vicanek, "Matched Second Order Digital Filters"
     (2016; formulas from memory, checked against the analog response in the
-    tests). Q is held within [MIN_Q, MAX_Q] and f_r within [MIN_RESONANCE_HZ, 0.45 fs]. Unlike the bilinear transform it does not squash the response towards
+    tests). Q is held within [MIN_Q, MAX_Q] and f_r within [MIN_RESONANCE_HZ, 0.45 fs].
+    Unlike the bilinear transform it does not squash the response towards
     Nyquist: within 0.1 dB of the analog filter up to a quarter of the rate.
     """
     f_r = min(max(float(resonance_hz), MIN_RESONANCE_HZ), 0.45 * sample_rate_hz)
