@@ -22,13 +22,13 @@ from dataclasses import dataclass
 import numpy as np
 
 from rtvoice.engine import midi
+from rtvoice.engine.notes import STRIKE_IMPULSE, harmonic_stretch, initial_amplitudes
 from rtvoice.engine.output import CEILING, Limiter, dc_blocker, electronics_filter
 from rtvoice.engine.schema import PICKUP_FIELDS
 from rtvoice.engine.settings import Settings
 from rtvoice.engine.voices import FADING, FREE, HELD, RELEASED, SOUNDING, VoicePool
 from rtvoice.physics.damping import LN_1000, decay_rate_per_s, loss_coefficients, release_rate_per_s
 from rtvoice.physics.electronics import lowpass_biquad, rlc_resonance
-from rtvoice.physics.excitation import excitation_amplitudes
 from rtvoice.physics.modes import NYQUIST_MARGIN
 from rtvoice.physics.pickup import spatial_sums
 from rtvoice.physics.tuning import midi_note_to_hz
@@ -36,7 +36,6 @@ from rtvoice.physics.tuning import midi_note_to_hz
 OUTPUT_SCALE = 0.25  # one full-velocity note peaks near -12 dBFS at 0 dB gain
 RETIRE_LEVEL = 1e-5  # -100 dBFS: a voice whose bound falls below this is silent
 FADE_T60_S = 0.02  # steal, re-pluck and all-sound-off fade
-STRIKE_IMPULSE = 2.0  # a strike's travelling pulses are then of unit height, like a pluck's peak
 SMOOTHING_S = 0.015  # time constant of live parameter smoothing
 
 Event = tuple[int, int, int, int]  # (sample offset in block, status, data1, data2)
@@ -120,22 +119,19 @@ class Engine:
 
     def _prepare_notes(self) -> None:
         s = self.settings
-        b_coef = s.get("string.inharmonicity")
-        self._stretch = self._k * np.sqrt(1.0 + b_coef * self._k**2)  # f_k / f0
+        self._stretch = harmonic_stretch(s.get("string.inharmonicity"), self.pool.modes)  # f_k / f0
         self._b1, self._b3 = loss_coefficients(s.get("string.t60_low"), s.get("string.t60_high"))
         self._release_t60 = s.get("string.release")
-        kind = s.get("excitation.kind")
-        a, b = excitation_amplitudes(kind, self.pool.modes, s.get("excitation.position"),
-                                     s.get("excitation.width"), s.get("excitation.shape"))
-        # Velocity coefficients become displacement amplitudes b_k / w_k (unit length and speed).
-        self._initial = a - 1j * STRIKE_IMPULSE * b / (np.pi * self._stretch)
+        self._initial = initial_amplitudes(s, self.pool.modes)
+
+    @property
+    def initial(self) -> np.ndarray:
+        """Initial mode amplitudes a full-velocity note-on would get now (read-only copy)."""
+        return self._initial.copy()
 
     def excitation_initial(self, position: float, width: float) -> np.ndarray:
         """Initial mode amplitudes of an excitation at ``position`` with ``width`` (per-note control)."""
-        s = self.settings
-        a, b = excitation_amplitudes(s.get("excitation.kind"), self.pool.modes, position, width,
-                                     s.get("excitation.shape"))
-        return a - 1j * STRIKE_IMPULSE * b / (np.pi * self._stretch)
+        return initial_amplitudes(self.settings, self.pool.modes, position, width)
 
     def _prepare_electronics(self) -> None:
         f_r, q = self.resonance()
@@ -533,4 +529,4 @@ class Engine:
         return self.pool.state[: self.pool.n_active]
 
 
-__all__ = ["CEILING", "Engine", "EngineStats", "Event", "FREE", "PICKUP_FIELDS"]
+__all__ = ["CEILING", "STRIKE_IMPULSE", "Engine", "EngineStats", "Event", "FREE", "PICKUP_FIELDS"]

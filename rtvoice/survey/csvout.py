@@ -1,0 +1,111 @@
+"""The survey as a CSV file: one row per grid point, one header line.
+
+Columns and units are documented in docs/survey.md. Rows run through notes,
+sensings, widths and pluck positions, with the pickup position changing fastest.
+The file is written to a temporary name and renamed, so a failed run leaves none.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import csv
+import itertools
+import os
+import tempfile
+from pathlib import Path
+
+import numpy as np
+
+from rtvoice.engine.schema import PARAMS
+from rtvoice.survey.result import SurveyResult
+
+COLUMNS = (
+    "note",
+    "f1_hz",
+    "sensing",
+    "pickup_position",
+    "pickup_position_mm",
+    "pickup_width",
+    "pickup_width_mm",
+    "pluck_position",
+    "pluck_position_mm",
+    "centroid_hz",
+    "centroid_ratio",
+    "odd_even_db",
+    "level_db",
+    "electronics_db",
+    "centroid_bare_hz",
+    "missing",
+)
+
+
+_NUMBERS = np.array([str(k) for k in range(1, int(PARAMS["string.modes"].high) + 1)], dtype=object)
+
+
+def missing_text(flags: np.ndarray) -> str:
+    """Harmonic numbers of the True entries, space-separated ("" when none)."""
+    return " ".join(_NUMBERS[: flags.size][flags])
+
+
+def rows(result: SurveyResult):
+    """Each grid point as a list of strings in :data:`COLUMNS` order."""
+    mm = result.scale_length_mm
+    pickups = [(f"{x:.6g}", f"{x * mm:.2f}") for x in result.pickups]
+    plucks = [(f"{p:.6g}", f"{p * mm:.2f}") for p in result.plucks]
+    widths = [(f"{w:.6g}", f"{w * mm:.2f}") for w in result.widths]
+    for i_n, i_s, i_w, i_p in itertools.product(
+        range(len(result.notes)),
+        range(len(result.sensings)),
+        range(result.widths.size),
+        range(result.plucks.size),
+    ):
+        head = [str(result.notes[i_n]), f"{result.f1_hz[i_n]:.3f}", result.sensings[i_s]]
+        at = (i_n, i_s, i_w, i_p)
+        line = (
+            result.centroid_hz[at],
+            result.centroid_ratio[at],
+            result.odd_even_db[at],
+            result.level_db[at],
+            result.electronics_db[at],
+            result.centroid_bare_hz[at],
+        )
+        missing = result.missing[at][..., : int(result.mode_counts[i_n])]
+        for i_x, (x, x_mm) in enumerate(pickups):
+            c, r, oe, lv, el, cb = (a[i_x] for a in line)
+            yield [
+                *head,
+                x,
+                x_mm,
+                *widths[i_w],
+                *plucks[i_p],
+                _fixed(c, 2),
+                _fixed(r, 4),
+                _fixed(oe, 3),
+                _fixed(lv, 3),
+                _fixed(el, 3),
+                _fixed(cb, 2),
+                missing_text(missing[i_x]),
+            ]
+
+
+def _fixed(value: float, digits: int) -> str:
+    """Fixed-point text; "inf", "-inf" or "nan" as Python writes them, and never "-0.000"."""
+    text = f"{value:.{digits}f}"
+    return text[1:] if text.startswith("-") and not text.strip("-0.") else text
+
+
+def write_csv(path: Path | str, result: SurveyResult) -> None:
+    """Write ``result`` to ``path`` atomically."""
+    path = Path(path)
+    folder = path.parent if str(path.parent) else Path(".")
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=folder)
+    try:
+        with os.fdopen(fd, "w", newline="", encoding="utf-8") as fh:
+            writer = csv.writer(fh)
+            writer.writerow(COLUMNS)
+            writer.writerows(rows(result))
+        os.replace(tmp, path)
+    except BaseException:
+        with contextlib.suppress(OSError):
+            os.unlink(tmp)
+        raise
