@@ -22,7 +22,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from rtvoice.engine import midi
-from rtvoice.engine.notes import STRIKE_IMPULSE, harmonic_stretch, initial_amplitudes
+from rtvoice.engine.notes import harmonic_stretch, initial_amplitudes
 from rtvoice.engine.output import CEILING, Limiter, dc_blocker, electronics_filter
 from rtvoice.engine.schema import PICKUP_FIELDS
 from rtvoice.engine.settings import Settings
@@ -529,4 +529,4 @@ class Engine:
         return self.pool.state[: self.pool.n_active]
 
 
-__all__ = ["CEILING", "STRIKE_IMPULSE", "Engine", "EngineStats", "Event", "FREE", "PICKUP_FIELDS"]
+__all__ = ["CEILING", "Engine", "EngineStats", "Event", "FREE", "PICKUP_FIELDS"]

@@ -1,0 +1,1 @@
+"""Screens laid over the main one: help, listening note, questions, prompts, presets."""

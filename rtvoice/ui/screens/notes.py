@@ -1,0 +1,105 @@
+"""The help screen and the first-start listening note."""
+
+from __future__ import annotations
+
+from textual.app import ComposeResult
+from textual.binding import Binding
+from textual.containers import VerticalScroll
+from textual.screen import ModalScreen
+from textual.widgets import Button, Static
+
+from rtvoice.engine.output import CEILING_DBFS
+from rtvoice.ui.keyboard import OCTAVE_DOWN, OCTAVE_UP, layout_lines
+
+HELP_KEYS = [
+    ("anywhere", [
+        ("ctrl+q", "quit (asks first if a sound is unsaved)"),
+        ("f1 or ?", "this help"),
+        ("ctrl+o", "presets: load, save as, rename, delete, revert"),
+        ("ctrl+s", "save the sound to its user preset"),
+        ("ctrl+t", "flip between sound slots A and B"),
+        ("ctrl+y", "copy this slot into the other one"),
+        ("ctrl+g", "switch the top view: harmonics / output spectrum"),
+        ("ctrl+l", "learn: the next control moved drives the chosen parameter"),
+        ("ctrl+r", "restart the engine if it stopped"),
+        ("tab", "move between the string and the parameter list"),
+    ]),
+    ("playing", [
+        ("letters, digits", "pluck a note (it rings out by itself)"),
+        (f"{OCTAVE_DOWN} {OCTAVE_UP}", "octave down / up"),
+        ("space", "mute every string (all notes off)"),
+    ]),
+    ("on the string", [
+        ("up / down", "choose the pluck point or a pickup"),
+        ("left / right", "move it 1 mm (shift: 10 mm); the mouse drags it"),
+        ("[ ]", "narrower / wider contact or aperture, 1 mm"),
+    ]),
+    ("in the parameter list", [
+        ("up / down", "choose a parameter"),
+        ("left / right", "step it down / up (shift: finer)"),
+        ("enter", "type a value (positions and widths also take mm, like 120mm)"),
+    ]),
+]
+
+
+def help_text() -> str:
+    lines = ["How to play and edit", ""]
+    for section, keys in HELP_KEYS:
+        lines.append(f"{section}:")
+        lines += [f"  {k:<16} {what}" for k, what in keys]
+        lines.append("")
+    lines.append("The keyboard rows are four strings a fourth apart; each key is one fret higher:")
+    lines += layout_lines()
+    lines += ["", "Bars: █ live level of each harmonic of the loudest note;",
+              "      │ what the model predicts at the attack; · predicted below the scale."]
+    return "\n".join(lines)
+
+
+class HelpScreen(ModalScreen[None]):
+    DEFAULT_CSS = """
+    HelpScreen { align: center middle; }
+    #help-body { width: 84; max-width: 100%; height: 100%; max-height: 100%; border: heavy $accent;
+                 background: $panel; padding: 0 1; }
+    """
+    BINDINGS = [Binding("escape,f1,q,question_mark", "close", "close")]
+
+    def compose(self) -> ComposeResult:
+        with VerticalScroll(id="help-body"):
+            yield Static(help_text(), id="help-text")
+            yield Static("escape: close", classes="dim")
+
+    def action_close(self) -> None:
+        self.dismiss(None)
+
+
+SAFETY_TEXT = (
+    "Before you play: protect your hearing.\n\n"
+    "Start with your amplifier or headphones turned down and raise the level slowly. "
+    f"rtvoice never sends more than {CEILING_DBFS:.0f} dBFS (its limiter holds the output "
+    "there), but what that means in your ears depends on everything after the computer. "
+    "Long sessions at high level damage hearing for good; take breaks.\n\n"
+    "This note is shown once."
+)
+
+
+class SafetyScreen(ModalScreen[None]):
+    DEFAULT_CSS = """
+    SafetyScreen { align: center middle; }
+    #safety-box { width: 64; max-width: 100%; height: auto; border: heavy $warning; padding: 0 1;
+                  background: $panel; }
+    """
+    BINDINGS = [Binding("enter,escape", "close", "understood")]
+
+    def compose(self) -> ComposeResult:
+        with VerticalScroll(id="safety-box"):
+            yield Static(SAFETY_TEXT, id="safety-text")
+            yield Button("Understood (enter)", id="safety-ok", variant="warning")
+
+    def on_mount(self) -> None:
+        self.query_one(Button).focus()
+
+    def on_button_pressed(self, event: Button.Pressed) -> None:
+        self.dismiss(None)
+
+    def action_close(self) -> None:
+        self.dismiss(None)

@@ -1,0 +1,1 @@
+"""Widgets of the terminal UI, each with one job."""

@@ -1,0 +1,188 @@
+"""Presets from the UI: load from the filtered list, save (atomically, into the user folder),
+save as, the factory set stays read-only, rename, delete with confirmation, revert."""
+
+from __future__ import annotations
+
+import os
+import tomllib
+from pathlib import Path
+
+import pytest
+from test_ui_helpers import fresh, run, screen_text, start_link, user_home, wait_for
+
+from rtvoice.engine import presets
+from rtvoice.engine.settings import Settings
+from rtvoice.ui.app import RtvoiceApp
+from rtvoice.ui.screens.dialogs import AskScreen, PromptScreen
+from rtvoice.ui.screens.presets import PresetScreen
+from rtvoice.ui.widgets.status import MODIFIED_MARK
+
+
+@pytest.fixture(scope="module")
+def link():
+    lk = start_link()
+    yield lk
+    lk.close()
+
+
+@pytest.fixture(autouse=True)
+def home(tmp_path, monkeypatch):
+    return user_home(tmp_path, monkeypatch)
+
+
+async def open_and_load(pilot, app, filter_text: str) -> None:
+    await pilot.press("ctrl+o")
+    assert isinstance(app.screen, PresetScreen)
+    await pilot.press(*filter_text, "enter")
+    await pilot.pause()
+
+
+def test_a_factory_preset_loads_from_the_filtered_list_into_the_ui_and_the_engine(link):
+    async def body():
+        app = RtvoiceApp(fresh(link), safety_note=False)
+        async with app.run_test(size=(80, 24)) as pilot:
+            await pilot.pause()
+            await pilot.press("ctrl+o")
+            shown = screen_text(app)
+            await pilot.press(*"hollow")
+            filtered = screen_text(app)
+            await pilot.press("enter")
+            await pilot.pause()
+            return app.session.slot, link.settings, shown, filtered, screen_text(app)
+
+    slot, engine_side, shown, filtered, after = run(body())
+    on_disk = presets.read_preset_file(presets.FACTORY_DIR / "hollow-middle.toml")
+    assert "little-bell" in shown and "little-bell" not in filtered and "hollow-middle" in filtered
+    assert slot.preset == "hollow-middle" and slot.origin == "factory"
+    assert slot.settings.differences(on_disk) == [] and not slot.dirty
+    assert engine_side.differences(on_disk) == []  # the engine plays it
+    assert "sound: hollow-middle [factory]" in after and MODIFIED_MARK not in after
+
+
+def test_saving_writes_a_whole_new_file_into_the_user_folder_and_renames_it_into_place(link, home,
+                                                                                       monkeypatch):
+    """Atomic save (common practice): the new text is written to a temporary file in the same
+    folder and renamed over the target, so the old preset stays whole until the rename."""
+    seen = []
+    real_replace = os.replace
+
+    def watching_replace(src, dst):
+        old = Path(dst).read_bytes() if os.path.exists(dst) else None
+        seen.append((os.path.dirname(src), Path(src).read_bytes(), old))
+        return real_replace(src, dst)
+
+    monkeypatch.setattr(presets.os, "replace", watching_replace)
+
+    async def body():
+        app = RtvoiceApp(fresh(link), safety_note=False)
+        async with app.run_test(size=(80, 24)) as pilot:
+            await pilot.pause()
+            await pilot.press("down", "right", "right")  # pickup 1: 2 mm towards the nut
+            dirty_text = screen_text(app)
+            await pilot.press("ctrl+s")  # never saved: asks for a name
+            assert isinstance(app.screen, PromptScreen)
+            await pilot.press(*"my-sound", "enter")
+            await pilot.pause()
+            first = app.session.settings
+            clean_text = screen_text(app)
+            await pilot.press("right")  # change again, and save over it (no name asked now)
+            await pilot.press("ctrl+s")
+            await pilot.pause()
+            return first, app.session.settings, dirty_text, clean_text, app.message_text
+
+    first, second, dirty_text, clean_text, message = run(body())
+    target = home / "presets" / "my-sound.toml"
+    assert MODIFIED_MARK in dirty_text and MODIFIED_MARK not in clean_text
+    assert "sound: my-sound [user]" in clean_text
+    assert message.startswith("saved") and str(target) in message
+    data = tomllib.loads(target.read_text())
+    assert data["pickup"][0]["position"] == pytest.approx(second.get("pickup.0.position"))
+    assert second.get("pickup.0.position") * 648 == pytest.approx((0.15 * 648) + 3, abs=1e-6)
+    assert len(seen) == 2
+    (dir1, new1, old1), (dir2, new2, old2) = seen
+    assert dir1 == dir2 == str(home / "presets")
+    assert old1 is None and old2 == new1  # the old file is untouched until the rename
+    assert tomllib.loads(new1.decode())["pickup"][0]["position"] == pytest.approx(
+        first.get("pickup.0.position"))
+    assert new2 == target.read_bytes()
+    assert not [p for p in target.parent.iterdir() if p.name.startswith(".")]  # no temporaries left
+
+
+def test_a_factory_preset_is_never_overwritten_save_as_offers_a_user_copy(link, home):
+    factory_file = presets.FACTORY_DIR / "hollow-middle.toml"
+    before = factory_file.read_bytes()
+
+    async def body():
+        app = RtvoiceApp(fresh(link), safety_note=False)
+        async with app.run_test(size=(80, 24)) as pilot:
+            await pilot.pause()
+            await open_and_load(pilot, app, "hollow")
+            await pilot.press("right")  # move the pluck 1 mm
+            await pilot.press("ctrl+s")
+            prompt = app.screen
+            assert isinstance(prompt, PromptScreen)
+            suggested = prompt.query_one("#prompt-input").value
+            await pilot.press("home", "ctrl+k", *"hollow-middle", "enter")
+            refused = prompt.error_text
+            still_open = app.screen is prompt
+            await pilot.press("home", "ctrl+k", *"hollow-mine", "enter")
+            await pilot.pause()
+            return suggested, refused, still_open, app.session.slot
+
+    suggested, refused, still_open, slot = run(body())
+    assert suggested != "hollow-middle"
+    assert still_open and refused.startswith("refused:") and "factory" in refused
+    assert factory_file.read_bytes() == before
+    assert slot.preset == "hollow-mine" and slot.origin == "user" and not slot.dirty
+    assert (home / "presets" / "hollow-mine.toml").is_file()
+
+
+def test_rename_and_delete_a_user_preset_with_confirmation(link, home):
+    presets.save_preset(Settings.defaults().with_values({"string.t60_low": 3.0}), "first-take")
+
+    async def body():
+        app = RtvoiceApp(fresh(link), safety_note=False)
+        async with app.run_test(size=(80, 24)) as pilot:
+            await pilot.pause()
+            await pilot.press("ctrl+o", *"first", "f3")  # rename
+            assert isinstance(app.screen, PromptScreen)
+            await pilot.press("home", "ctrl+k", *"second-take", "enter")
+            await pilot.pause()
+            renamed = sorted(p.name for p in (home / "presets").iterdir())
+            assert presets.load_preset("second-take").get("string.t60_low") == 3.0
+            await pilot.press("ctrl+o", *"second", "f8")  # delete: asks first
+            assert isinstance(app.screen, AskScreen)
+            await pilot.press("n")
+            kept = (home / "presets" / "second-take.toml").is_file()
+            await pilot.press("ctrl+o", *"second", "f8")
+            await pilot.press("y")
+            await pilot.pause()
+            return renamed, kept, app.message_text
+
+    renamed, kept, message = run(body())
+    assert renamed == ["second-take.toml"]
+    assert kept
+    assert not (home / "presets" / "second-take.toml").exists()
+    assert message == "deleted user preset second-take"
+
+
+def test_revert_goes_back_to_the_saved_preset_after_asking(link):
+    async def body():
+        app = RtvoiceApp(fresh(link), safety_note=False)
+        async with app.run_test(size=(80, 24)) as pilot:
+            await pilot.pause()
+            await open_and_load(pilot, app, "hollow")
+            await pilot.press("down", "shift+right")
+            changed = app.session.settings.get("pickup.0.position")
+            await pilot.press("ctrl+o", "f5")
+            asked = isinstance(app.screen, AskScreen)
+            await pilot.press("y")
+            await pilot.pause()
+            ok = await wait_for(pilot, lambda: link.settings.get("pickup.0.position") == 0.25)
+            return changed, asked, app.session.slot, ok
+
+    changed, asked, slot, engine_back = run(body())
+    assert changed == pytest.approx(0.25 + 10 / 648)
+    assert asked
+    assert slot.settings.get("pickup.0.position") == 0.25 and not slot.dirty
+    assert engine_back
