@@ -10,8 +10,8 @@ import math
 
 import numpy as np
 import pytest
-
 from analysis import db, decay_rate_per_s, fit_damped_modes, peak_frequency_hz
+
 from rtvoice.engine.output import CEILING
 from rtvoice.engine.renderer import OUTPUT_SCALE, Engine
 from rtvoice.engine.settings import Settings

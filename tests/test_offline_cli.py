@@ -9,8 +9,8 @@ import mido
 import numpy as np
 import pytest
 import scipy.io.wavfile
-
 from analysis import peak_frequency_hz
+
 from rtvoice.offline.midifile import MidiFileError, read_midi_events
 
 ROOT = Path(__file__).resolve().parents[1]

@@ -35,9 +35,8 @@ class BlockFilter:
         self.b, self.a = b, a
 
     def process(self, x: np.ndarray) -> None:
-        y, self.zi = scipy.signal.lfilter(self.b, self.a, x, zi=self.zi)
-        x[:] = y
-        if not np.all(np.isfinite(self.zi)):
+        x[:], self.zi = scipy.signal.lfilter(self.b, self.a, x, zi=self.zi)
+        if not all(map(math.isfinite, self.zi)):  # a few values: cheaper in Python than a ufunc
             self.zi[:] = 0.0
 
     def reset(self) -> None:
@@ -64,8 +63,11 @@ class Limiter:
     sample, and recovers with a release time constant. Anything still above the
     ceiling (a transient inside the attack ramp) is clipped, so no sample ever
     exceeds :data:`CEILING`. ``gain_reduction_db`` reports the deepest reduction of
-    the last block; ``clipped`` counts samples that needed the safety clip.
+    the last block, ``peak`` its largest output magnitude; ``clipped`` counts
+    samples that needed the safety clip.
     """
+
+    RECOVERED = 1.0 - 1e-6  # a gain this close to 1 is 1 (-0.00001 dB)
 
     def __init__(self, sample_rate_hz: float, block_frames: int, release_s: float = 0.15):
         self.gain = 1.0
@@ -77,6 +79,7 @@ class Limiter:
         self._release_curve = self.release_coef ** self._idx
         self.gain_reduction_db = 0.0
         self.clipped = 0
+        self.peak = 0.0
 
     def process(self, x: np.ndarray) -> None:
         n = x.size
@@ -85,6 +88,10 @@ class Limiter:
         peak_at = int(np.argmax(work))
         peak = float(work[peak_at])
         g0 = self.gain
+        if g0 == 1.0 and peak <= CEILING:  # the usual case: nothing to do
+            self.gain_reduction_db = 0.0
+            self.peak = peak
+            return
         # Release: the gain climbs back towards 1.
         np.multiply(self._release_curve[:n], g0 - 1.0, out=ramp)
         ramp += 1.0
@@ -96,12 +103,15 @@ class Limiter:
             ramp[steps:] = np.minimum(ramp[steps:], target)
         x *= ramp
         self.gain = float(ramp[-1])
+        if self.gain > self.RECOVERED:
+            self.gain = 1.0
         self.gain_reduction_db = -20.0 * math.log10(max(float(ramp.min()), 1e-12))
         np.abs(x, out=work)
         over = int(np.count_nonzero(work > CEILING))
         if over:
             self.clipped += over
             np.clip(x, -CEILING, CEILING, out=x)
+        self.peak = min(float(work.max()), CEILING)
 
     def reset(self) -> None:
         self.gain = 1.0

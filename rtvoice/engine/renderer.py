@@ -23,7 +23,7 @@ import numpy as np
 
 from rtvoice.engine import midi
 from rtvoice.engine.notes import harmonic_stretch, initial_amplitudes
-from rtvoice.engine.output import CEILING, Limiter, dc_blocker, electronics_filter
+from rtvoice.engine.output import CEILING, BlockFilter, Limiter, dc_blocker
 from rtvoice.engine.schema import PICKUP_FIELDS
 from rtvoice.engine.settings import Settings
 from rtvoice.engine.voices import FADING, FREE, HELD, RELEASED, SOUNDING, VoicePool
@@ -35,6 +35,7 @@ from rtvoice.physics.tuning import midi_note_to_hz
 
 OUTPUT_SCALE = 0.25  # one full-velocity note peaks near -12 dBFS at 0 dB gain
 RETIRE_LEVEL = 1e-5  # -100 dBFS: a voice whose bound falls below this is silent
+RETIRE_CHECK_S = 0.01  # silent voices are looked for this often (the bound costs a pass over all modes)
 FADE_T60_S = 0.02  # steal, re-pluck and all-sound-off fade
 SMOOTHING_S = 0.015  # time constant of live parameter smoothing
 
@@ -78,13 +79,14 @@ class Engine:
         self.excitation_hook = None  # callable(channel) -> initial mode amplitudes for a note there, or None
         self._alpha = 1.0 - math.exp(-self.block / (SMOOTHING_S * self.fs))
         self._order = 0
+        self._retire_every = max(1, round(RETIRE_CHECK_S * self.fs / self.block))  # blocks
         self._out = np.zeros(self.block)
         self._exact = np.zeros(self.block)
         self._ramp = np.arange(1, self.block + 1) / self.block
         self._gain_ramp = np.empty(self.block)
         self._dc = dc_blocker(self.fs)
         self.limiter = Limiter(self.fs, self.block)
-        self._elec = None
+        self._post: BlockFilter | None = None  # coil filter and DC blocker in one
         self._gain = self._gain_target = 10 ** (self.settings.get("output.gain_db") / 20)
         self._pickups_now = [dict(p) for p in self.settings.pickups]
         self._bend_dirty = False
@@ -104,13 +106,11 @@ class Engine:
         n1, n2 = self.pool.n1, self.pool.n2
         self._k = np.arange(1, modes + 1, dtype=float)
         self._g_next = np.zeros((slots, modes), complex)
-        self._d = np.zeros((slots, modes), complex)
-        self._d64 = np.zeros(slots * modes, np.complex64)
-        self._d64b = np.zeros(slots * modes, np.complex64)
-        self._c = np.zeros((slots * modes, 2 * n2), np.complex64)
-        self._y = np.zeros((2 * n2, n1), np.complex64)
-        self._a_flat = self.pool.A.reshape(slots * modes, n1)
-        self._b_flat = self.pool.B.reshape(slots * modes, n2 + 1)
+        self._d64 = np.zeros((2, slots * modes), np.complex64)  # g s now, and with the ramp's target g
+        self._ct = np.zeros((2 * n2, slots * modes), np.complex64)  # C^T: rows B[j] * d, contiguous
+        self._y = np.zeros((2 * n2, n1), np.float32)
+        self._a_rows = self.pool.A_rows.reshape(slots * modes * 2, n1)
+        self._b_t = self.pool.B_t.reshape(n2 + 1, slots * modes)
         self._touched = np.zeros(slots, bool)
         self._upto = np.zeros(slots, np.int64)
         self._touched_list: list[int] = []
@@ -134,13 +134,20 @@ class Engine:
         return initial_amplitudes(self.settings, self.pool.modes, position, width)
 
     def _prepare_electronics(self) -> None:
+        """The coil-and-cable low-pass and the DC blocker, cascaded into one filter (one call per block).
+
+        New coefficients keep the state (as the coil filter alone did), so a change of
+        resonance while notes ring does not restart the filter.
+        """
         f_r, q = self.resonance()
-        if f_r <= 0:
-            self._elec = None
-        elif self._elec is None:
-            self._elec = electronics_filter(f_r, q, self.fs)
+        b, a = self._dc.b, self._dc.a
+        if f_r > 0:
+            coil_b, coil_a = lowpass_biquad(f_r, q, self.fs)
+            b, a = np.convolve(coil_b, b), np.convolve(coil_a, a)
+        if self._post is None:
+            self._post = BlockFilter(b, a)
         else:
-            self._elec.set_coefficients(*lowpass_biquad(f_r, q, self.fs))
+            self._post.set_coefficients(b, a)
 
     def resonance(self) -> tuple[float, float]:
         """(f_r in Hz, Q) of the electronics now in use; f_r = 0 when bypassed."""
@@ -156,10 +163,10 @@ class Engine:
     def _weights(self, lo: int, hi: int, out: np.ndarray) -> None:
         """Pickup weights of slots lo..hi-1 into ``out`` (modes above the limit weigh 0)."""
         pool = self.pool
-        deriv = (-pool.sigma_hold[lo:hi] + 1j * pool.omega[lo:hi]) / pool.omega1[lo:hi, None]
-        w = self._disp + self._vel * deriv
-        w[pool.omega[lo:hi] >= self._omega_limit] = 0.0
-        out[lo:hi] = w
+        w = out[lo:hi]
+        np.multiply(pool.deriv[lo:hi], self._vel, out=w)
+        w += self._disp
+        w *= pool.audible[lo:hi]
 
     # -- settings -----------------------------------------------------------------
     def apply_settings(self, settings: Settings) -> None:
@@ -207,28 +214,24 @@ class Engine:
     def _render_bulk(self, ramping: bool) -> None:
         pool, out = self.pool, self._out
         n = pool.n_active
-        n1, n2 = pool.n1, pool.n2
-        out[:] = 0.0
         if n == 0:
+            out[:] = 0.0
             self._clear_touched()
             return
-        m = n * pool.modes
-        cols = 2 * n2 if ramping else n2
-        np.multiply(pool.g[:n], pool.s[:n], out=self._d[:n])
-        self._d64[:m] = self._d[:n].reshape(-1)
-        for v in self._touched_list:
-            self._d64[v * pool.modes:(v + 1) * pool.modes] = 0.0
-        c = self._c[:m]
-        np.multiply(self._b_flat[:m, :n2], self._d64[:m, None], out=c[:, :n2])
-        if ramping:
-            np.multiply(self._g_next[:n], pool.s[:n], out=self._d[:n])
-            self._d64b[:m] = self._d[:n].reshape(-1)
+        modes, n1, n2 = pool.modes, pool.n1, pool.n2
+        m = n * modes
+        sets = 2 if ramping else 1
+        ct = self._ct
+        for i, g in enumerate((pool.g, self._g_next)[:sets]):
+            d = self._d64[i, :m]
+            np.multiply(g[:n], pool.s[:n], out=d.reshape(n, modes), casting="same_kind")
             for v in self._touched_list:
-                self._d64b[v * pool.modes:(v + 1) * pool.modes] = 0.0
-            np.multiply(self._b_flat[:m, :n2], self._d64b[:m, None], out=c[:, n2:])
-        y = self._y[:cols]
-        np.matmul(c[:, :cols].T, self._a_flat[:m], out=y)
-        flat = y.real.reshape(-1)
+                d[v * modes:(v + 1) * modes] = 0.0
+            np.multiply(self._b_t[:n2, :m], d, out=ct[i * n2:(i + 1) * n2, :m])
+        # Re(Y) = [Re C, Im C] . [Re A; -Im A]: one real product over 2 m rows.
+        y = self._y[: sets * n2]
+        np.matmul(ct[: sets * n2, :m].view(np.float32), self._a_rows[: 2 * m], out=y)
+        flat = y.reshape(-1)
         if ramping:
             old, new = flat[: n1 * n2][: self.block], flat[n1 * n2:][: self.block]
             np.subtract(new, old, out=out)
@@ -263,11 +266,10 @@ class Engine:
         count = stop - start
         if count <= 0:
             return
-        powers = pool.powers(v, count)
-        z0 = (pool.g[v] * pool.s[v]) @ powers
+        z0 = pool.segment(v, pool.g[v] * pool.s[v], count)
         seg = self._exact[start:stop]
         if ramping:
-            z1 = (self._g_next[v] * pool.s[v]) @ powers
+            z1 = pool.segment(v, self._g_next[v] * pool.s[v], count)
             r = self._ramp[start:stop]
             seg += z0.real + (z1.real - z0.real) * r
         else:
@@ -346,6 +348,8 @@ class Engine:
         pool.bend[v] = bend
         pool.omega[v] = pool.omega_base[v] * factor
         pool.omega1[v] = pool.omega_base[v, 0] * factor
+        pool.deriv[v] = (-pool.sigma_hold[v] + 1j * pool.omega[v]) / pool.omega1[v]
+        pool.audible[v] = pool.omega[v] < self._omega_limit
 
     def _note_off(self, at: int, ch: int, note: int, ramping: bool) -> None:
         pool = self.pool
@@ -457,8 +461,7 @@ class Engine:
     def _finish(self) -> np.ndarray:
         out = self._out
         out *= OUTPUT_SCALE
-        if self._elec is not None:
-            self._elec.process(out)
+        self._post.process(out)  # linear and time-invariant, so it may come before the gain ramp
         g0 = self._gain
         g1 = g0 + (self._gain_target - g0) * self._alpha
         if abs(g1 - self._gain_target) < 1e-6 * self._gain_target:
@@ -470,16 +473,13 @@ class Engine:
             self._gain_ramp += g0
             out *= self._gain_ramp
         self._gain = g1
-        self._dc.process(out)
-        if not np.all(np.isfinite(out)):
+        if not math.isfinite(out.sum()):  # NaN and inf survive a sum
             self._drop_bad_voices()
             out[:] = 0.0
-            for f in (self._dc, self._elec):
-                if f is not None:
-                    f.reset()
+            self._post.reset()
         self.limiter.process(out)
         st = self.stats
-        st.peak = float(np.max(np.abs(out)))
+        st.peak = self.limiter.peak
         st.gain_reduction_db = self.limiter.gain_reduction_db
         st.clipped = self.limiter.clipped
         st.blocks += 1
@@ -494,7 +494,7 @@ class Engine:
 
     def _retire(self) -> None:
         pool = self.pool
-        if pool.n_active:
+        if pool.n_active and (self.stats.blocks % self._retire_every == 0 or self._pending_rebuild is not None):
             bound = pool.bound() * OUTPUT_SCALE * max(self._gain, 1.0)
             dead = np.flatnonzero(~(bound >= RETIRE_LEVEL))  # catches NaN too
             for v in dead[::-1]:

@@ -31,7 +31,7 @@ def register(sub: argparse._SubParsersAction) -> None:
     r.add_argument("--velocity", type=_velocity, default=100, help="note-on velocity 1-127 (default 100)")
     r.add_argument("--seconds", type=_seconds, default=2.0, help="how long --note is held (default 2)")
     r.add_argument("-o", "--output", required=True, help="WAV file to write (32-bit float)")
-    add_sound_options(r, block=1024)
+    add_sound_options(r, block=2048)
     r.add_argument("--tail-cap", type=_seconds, default=30.0, help="longest ring-out after the last event, s")
     r.set_defaults(func=run_render)
 

@@ -17,8 +17,13 @@ import numpy as np
 def aperture_weights(k: np.ndarray, position: float, width: float = 0.0) -> np.ndarray:
     """sin(k pi x) sinc(k pi w / 2): the spatial weight of mode k for one pickup."""
     k = np.asarray(k, dtype=float)
-    spatial = np.sin(k * np.pi * float(position))
-    return spatial * np.sinc(k * float(width) / 2.0) if width > 0 else spatial
+    spatial = np.sin(k * (np.pi * float(position)))
+    if width > 0:
+        # sin(u) / u written out: np.sinc makes several temporaries, and this runs every
+        # block while a pickup moves. u = 0 (k = 0) has the limit 1.
+        u = k * (np.pi * float(width) / 2.0)
+        spatial *= np.divide(np.sin(u), u, out=np.ones_like(u), where=u != 0)
+    return spatial
 
 
 def first_aperture_null(width: float) -> float:

@@ -1,0 +1,51 @@
+"""``rtvoice bench``: run the benchmarks and print (or write) the figures."""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import sys
+from pathlib import Path
+
+from rtvoice.bench.machine import BLAS_THREADS_ENV
+
+
+def register(sub: argparse._SubParsersAction) -> None:
+    b = sub.add_parser("bench", help="measure engine cost beside the machine's limit and the baselines")
+    b.add_argument("--quick", action="store_true", help="a smaller grid that finishes in under 30 s")
+    b.add_argument("--json", action="store_true", help="print one JSON object with every figure")
+    b.add_argument("--write", metavar="FILE", help="also write the figures to FILE (.json: JSON, else the table)")
+    b.set_defaults(func=run_bench)
+
+
+def _single_blas_thread(argv: list[str]) -> None:
+    """Re-run this command with one BLAS thread when the environment asks for more.
+
+    BLAS reads its thread count when it loads, before any command runs, so the
+    only reliable way to measure one core is a fresh process.
+    """
+    if os.environ.get(BLAS_THREADS_ENV) == "1" or os.environ.get("RTVOICE_BENCH_CHILD"):
+        return
+    env = dict(os.environ, **{BLAS_THREADS_ENV: "1", "RTVOICE_BENCH_CHILD": "1"})
+    os.execve(sys.executable, [sys.executable, "-m", "rtvoice.cli", "bench", *argv], env)
+
+
+def run_bench(args: argparse.Namespace) -> int:
+    argv = [a for a, on in (("--quick", args.quick), ("--json", args.json)) if on]
+    if args.write:
+        argv += ["--write", args.write]
+    _single_blas_thread(argv)
+    from rtvoice.bench import report, runner
+
+    plan = runner.QUICK if args.quick else runner.FULL
+    progress = None if args.json else (lambda msg: print(f"  {msg}", file=sys.stderr, flush=True))
+    result = runner.run(plan, progress)
+    result["command"] = "rtvoice bench" + "".join(f" {a}" for a in argv)
+    text = json.dumps(result, indent=2) if args.json else report.render_text(result)
+    sys.stdout.write(text if text.endswith("\n") else text + "\n")
+    if args.write:
+        path = Path(args.write)
+        body = json.dumps(result, indent=2) + "\n" if path.suffix == ".json" else report.render_text(result)
+        path.write_text(body, encoding="utf-8")
+    return 0

@@ -1,0 +1,125 @@
+"""Engine cost per block over voices x modes x block sizes, beside the bare product."""
+
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass
+
+from rtvoice.bench.limits import BareProduct, bare_factored_product
+from rtvoice.bench.scenes import SAMPLE_RATE_HZ, HeldChord, chord_events, feature_settings
+from rtvoice.bench.timing import Timing, summarize, time_calls
+from rtvoice.engine.renderer import Engine
+
+
+def block_period_us(block_frames: int, sample_rate_hz: float = SAMPLE_RATE_HZ) -> float:
+    return block_frames / sample_rate_hz * 1e6
+
+
+@dataclass(frozen=True)
+class GridPoint:
+    """One (voices, modes, block) cell: the engine's block time and the bare product's."""
+
+    voices: int
+    modes: int
+    block: int
+    ramps: bool
+    active: int  # voices actually sounding while timed
+    engine: Timing
+    bare: BareProduct
+
+    @property
+    def total_modes(self) -> int:
+        return self.voices * self.modes
+
+    @property
+    def period_us(self) -> float:
+        return block_period_us(self.block)
+
+    @property
+    def load(self) -> float:
+        """Median block time as a fraction of the block period."""
+        return self.engine.median_us / self.period_us
+
+    @property
+    def load_p99(self) -> float:
+        return self.engine.p99_us / self.period_us
+
+    @property
+    def efficiency(self) -> float:
+        """Engine throughput over bare-product throughput (same modes, same block)."""
+        return self.bare.timing.median_us / self.engine.median_us
+
+    def as_dict(self) -> dict:
+        return {
+            "voices": self.voices, "modes_per_voice": self.modes, "total_modes": self.total_modes,
+            "block": self.block, "ramps": self.ramps, "active_voices": self.active,
+            "engine": self.engine.as_dict(), "bare_product": self.bare.timing.as_dict(),
+            "load_median": round(self.load, 4), "load_p99": round(self.load_p99, 4),
+            "efficiency": round(self.efficiency, 3),
+        }
+
+
+def time_engine(voices: int, modes: int, block: int, repeats: int, ramps: bool = True,
+                warmup: int = 20) -> tuple[Timing, int]:
+    """Median and tail of one block with ``voices`` held notes of ``modes`` modes."""
+    chord = HeldChord.start(voices, modes, block, ramps)
+    timing = time_calls(chord.render, repeats, warmup, between=chord.swing)
+    return timing, chord.active
+
+
+def run_grid(voices_list, modes_list, blocks, repeats: int, ramps: bool = True,
+             progress=None) -> list[GridPoint]:
+    points = []
+    for block in blocks:
+        for modes in modes_list:
+            for voices in voices_list:
+                timing, active = time_engine(voices, modes, block, repeats, ramps)
+                bare = bare_factored_product(voices * modes, block, repeats)
+                points.append(GridPoint(voices, modes, block, ramps, active, timing, bare))
+                if progress:
+                    progress(f"engine {voices}x{modes} @{block}: {timing.median_us:.0f} us")
+    return points
+
+
+def idle_costs(block: int, repeats: int, modes: int = 128) -> dict:
+    """What silence and unused polyphony cost.
+
+    ``silent_block``: a 128-voice engine with nothing sounding (the output stage only).
+    ``per_idle_slot``: (one note in a 128-voice pool - one note in a 1-voice pool) / 127.
+    """
+    def engine_with(voices: int, notes: int) -> Engine:
+        engine = Engine(feature_settings(voices, modes), SAMPLE_RATE_HZ, block)
+        engine.render(chord_events(notes))
+        return engine
+
+    silent = engine_with(128, 0)
+    t_silent = time_calls(lambda: silent.render(()), repeats, 20)
+    big, small = engine_with(128, 1), engine_with(1, 1)
+    t_big, t_small = time_alternately(lambda: big.render(()), lambda: small.render(()), repeats)
+    period = block_period_us(block)
+    return {
+        "block": block,
+        "silent_block": t_silent.as_dict(),
+        "silent_load": round(t_silent.median_us / period, 4),
+        "one_note_in_128_voice_pool": t_big.as_dict(),
+        "one_note_in_1_voice_pool": t_small.as_dict(),
+        "per_idle_slot_us": round((t_big.median_us - t_small.median_us) / 127, 3),
+    }
+
+
+def time_alternately(first, second, repeats: int, warmup: int = 20) -> tuple[Timing, Timing]:
+    """Time two calls in alternation, so a slow spell of the machine falls on both alike."""
+    clock = time.perf_counter_ns
+    for _ in range(warmup):
+        first()
+        second()
+    a, b = [], []
+    for _ in range(repeats):
+        t0 = clock()
+        first()
+        t1 = clock()
+        second()
+        t2 = clock()
+        a.append(t1 - t0)
+        b.append(t2 - t1)
+    return summarize(a), summarize(b)

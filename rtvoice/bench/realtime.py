@@ -1,0 +1,139 @@
+"""Callback time under a JACK dummy server, with and without the terminal UI redrawing.
+
+The bench starts its own JACK server (dummy backend, 128-frame periods, a server
+name of its own so it disturbs no other), runs the real host (:mod:`rtvoice.host`)
+on it with 64 voices x 128 modes and every feature on, strums a chord every two
+seconds and swings a pickup 20 times a second, as a player at the screen would.
+The engine process keeps a histogram of callback time over block period; its
+median and 99th percentile and the xrun count are reported. The second run does
+the same with the Textual UI drawing at its frame rate in this process.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import contextlib
+import importlib.util
+import os
+import shutil
+import subprocess
+import time
+
+from rtvoice.bench.scenes import NOTES_PER_CHANNEL, feature_settings
+
+SERVER_NAME = "rtvbench"
+PERIOD_FRAMES = 128
+VOICES, MODES = 64, 128
+RESTRIKE_S, SWING_S = 2.0, 0.05
+
+
+@contextlib.contextmanager
+def jack_server(name: str = SERVER_NAME, period: int = PERIOD_FRAMES):
+    """A JACK dummy server of our own for the duration of the block; yields its name."""
+    proc = subprocess.Popen(["jackd", "-n", name, "--no-realtime", "-d", "dummy", "-r", "48000", "-p", str(period)],
+                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, stdin=subprocess.DEVNULL)
+    try:
+        ok = subprocess.run(["jack_wait", "-s", name, "-w", "-t", "10"], capture_output=True, check=False,
+                            timeout=20).returncode == 0
+        if not ok:
+            raise RuntimeError("the JACK dummy server did not start")
+        yield name
+    finally:
+        proc.terminate()
+        try:
+            proc.wait(5)
+        except subprocess.TimeoutExpired:
+            proc.kill()
+            proc.wait()
+
+
+def _chord():
+    return [(i // NOTES_PER_CHANNEL, 40 + i % NOTES_PER_CHANNEL) for i in range(VOICES)]
+
+
+def _perform(link, seconds: float, tick=None) -> None:
+    """Strum the chord every RESTRIKE_S and swing pickup 0 every SWING_S for ``seconds``."""
+    start = time.monotonic()
+    next_strike = start
+    swing = 0
+    while (now := time.monotonic()) - start < seconds:
+        if now >= next_strike:
+            for ch, note in _chord():
+                link.note_off(note, ch)
+                link.note_on(note, 90, ch)
+            next_strike += RESTRIKE_S
+        swing += 1
+        link.set_value("pickup.0.position", 0.12 if swing % 2 else 0.16)
+        if tick is not None:
+            tick(SWING_S)
+        else:
+            time.sleep(SWING_S)
+
+
+def _run_once(seconds: float, with_ui: bool) -> dict:
+    from rtvoice.host.link import EngineLink
+
+    link = EngineLink(feature_settings(VOICES, MODES), audio_device="system", rate=48000, block=PERIOD_FRAMES,
+                      midi_in="none", client_name="rtvbench-engine")
+    link.start()
+    try:
+        if with_ui:
+            from rtvoice.ui.app import RtvoiceApp
+
+            async def drive():
+                app = RtvoiceApp(link, safety_note=False)
+                async with app.run_test(size=(120, 40)):
+                    loop_start = time.monotonic()
+                    strike, swing = loop_start, 0
+                    while time.monotonic() - loop_start < seconds:
+                        if time.monotonic() >= strike:
+                            for ch, note in _chord():
+                                link.note_off(note, ch)
+                                link.note_on(note, 90, ch)
+                            strike += RESTRIKE_S
+                        swing += 1
+                        link.set_value("pickup.0.position", 0.12 if swing % 2 else 0.16)
+                        await asyncio.sleep(SWING_S)
+                    frames = app.frames
+
+                return frames
+
+            frames = asyncio.run(drive())
+        else:
+            _perform(link, seconds)
+            frames = 0
+        audio = link.ready_info.get("audio_port", "")
+    finally:
+        link.close()
+    s = link.summary
+    out = {"audio": audio, "seconds": round(s.get("seconds", 0.0), 2), "blocks": s.get("blocks"),
+           "load_median": s.get("load_median"), "load_p99": s.get("load_p99"), "xruns": s.get("xruns")}
+    if with_ui:
+        out["ui_frames_drawn"] = frames
+    return out
+
+
+def callback_distribution(seconds: float) -> dict:
+    if seconds <= 0:
+        return {"available": False, "reason": "skipped in --quick"}
+    if importlib.util.find_spec("rtvoice.host") is None or importlib.util.find_spec("rtvoice.host.link") is None:
+        return {"available": False, "reason": "rtvoice.host is not built yet"}
+    if not (shutil.which("jackd") and shutil.which("jack_wait")):
+        return {"available": False, "reason": "jackd / jack_wait not installed (Debian: jackd2)"}
+    saved = {k: os.environ.get(k) for k in ("JACK_DEFAULT_SERVER", "JACK_NO_START_SERVER")}
+    result: dict = {"available": True, "voices": VOICES, "modes": MODES, "period_frames": PERIOD_FRAMES}
+    try:
+        with jack_server() as name:
+            os.environ["JACK_DEFAULT_SERVER"] = name
+            os.environ["JACK_NO_START_SERVER"] = "1"
+            result["without_ui"] = _run_once(seconds, with_ui=False)
+            result["with_ui"] = _run_once(seconds, with_ui=True)
+    except Exception as err:  # noqa: BLE001 - a host under construction must not stop the benchmarks
+        return {"available": False, "reason": f"{type(err).__name__}: {err}"}
+    finally:
+        for k, v in saved.items():
+            if v is None:
+                os.environ.pop(k, None)
+            else:
+                os.environ[k] = v
+    return result

@@ -1,0 +1,238 @@
+"""The benchmark code itself: the baselines render the engine's partials, the scenes do what they claim.
+
+No timing is asserted here (speed targets are checked by ``rtvoice bench``). Each
+baseline must render the same partials (frequency and level) as the engine for a
+simple note, so the comparison in the benchmark is like for like.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import os
+import subprocess
+import sys
+
+import numpy as np
+import pytest
+import scipy.signal
+from analysis import fit_damped_modes, peak_frequency_hz
+
+from rtvoice.bench.baselines import (
+    KarplusStrongBank,
+    OutputChain,
+    PhasorBank,
+    ResonatorBank,
+    allpass_coefficient,
+    partials_of,
+    pluck_comb_response,
+    stretch_for_loss,
+)
+from rtvoice.bench.scenes import HeldChord
+from rtvoice.engine.renderer import Engine
+from rtvoice.engine.settings import Settings
+from rtvoice.physics.damping import LN_1000
+
+FS = 48000
+BLOCK = 128
+F1 = 375.0  # exactly 128 samples per period at 48 kHz, so a quarter-length comb delay is 32 samples
+NOTE = 66  # F#4, tuned to F1 through tuning.a4_hz
+PLUCK = 0.25
+PICKUP = 0.13
+HARMONICS = 12
+BLOCKS = 160  # 0.43 s
+# Loss law sigma = b1 + b3 w^2 (Chaigne & Askenfelt, JASA 95(2), 1994) with b3 = f1 / (8 fs^2), the
+# damping that the original two-point average (S = 1/2) gives per period: |cos(w / 2)| ~ 1 - w^2 / 8.
+B1 = 0.5
+B3 = F1 / (8 * FS**2)
+
+
+def _sigma(f_hz):
+    return B1 + B3 * (2 * np.pi * np.asarray(f_hz)) ** 2
+
+
+def simple_note_settings() -> Settings:
+    """One harmonic string (B = 0), plucked at 1/4, one displacement pickup, no coil filter, 0 dB."""
+    return Settings.defaults().with_values({
+        "tuning.a4_hz": F1 * 2 ** (3 / 12),  # note 66 is three semitones under A4 (12-TET)
+        "string.inharmonicity": 0.0,
+        "string.modes": 24,
+        "string.t60_low": float(LN_1000 / _sigma(100.0)),
+        "string.t60_high": float(LN_1000 / _sigma(2000.0)),
+        "excitation.position": PLUCK,
+        "excitation.width": 0.0,
+        "pickup.0.position": PICKUP,
+        "pickup.0.width": 0.0,
+        "pickup.0.sensing": "displacement",
+        "electronics.resonance_hz": 0.0,
+        "output.gain_db": 0.0,
+        "voices": 1,
+    })
+
+
+@pytest.fixture(scope="module")
+def renders() -> dict[str, np.ndarray]:
+    """The engine and each baseline rendering the same note from the same moment (after block 1)."""
+    engine = Engine(simple_note_settings(), FS, BLOCK)
+    engine.render([(0, 0x90, NOTE, 100)])
+    partials = partials_of(engine)
+    banks = {
+        "resonators": ResonatorBank(partials, BLOCK),
+        "phasors": PhasorBank(partials, BLOCK),
+        "karplus_strong": KarplusStrongBank(engine, partials),
+    }
+    chains = {name: OutputChain(engine) for name in banks}
+    out = {"engine": np.concatenate([engine.render(()).copy() for _ in range(BLOCKS)])}
+    for name, bank in banks.items():
+        out[name] = np.concatenate([chains[name].process(bank.render().copy()) for _ in range(BLOCKS)])
+    return out
+
+
+def _harmonic_peaks(x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(frequency Hz, level dB) of the largest FFT peak near each harmonic k F1 (Hann window, 8x padding)."""
+    n = x.size
+    spectrum = np.abs(np.fft.rfft(x * np.hanning(n), 8 * n))
+    freqs = np.fft.rfftfreq(8 * n, 1 / FS)
+    f_peak, level = [], []
+    for k in range(1, HARMONICS + 1):
+        band = np.flatnonzero(np.abs(freqs - k * F1) <= 20.0)
+        i = band[np.argmax(spectrum[band])]
+        f_peak.append(peak_frequency_hz(x, FS, k * F1, 20.0))
+        level.append(20 * np.log10(spectrum[i] + 1e-300))
+    return np.array(f_peak), np.array(level)
+
+
+def _nulls(k: np.ndarray) -> np.ndarray:
+    """Harmonics that a pluck at 1/4 leaves out: sin(k pi / 4) = 0 (Fletcher & Rossing 1998, ch. 2)."""
+    return k % 4 == 0
+
+
+K = np.arange(1, HARMONICS + 1)
+
+
+@pytest.mark.parametrize("name", ["resonators", "phasors"])
+def test_modal_baselines_render_the_engine_partials(renders, name):
+    f_engine, db_engine = _harmonic_peaks(renders["engine"])
+    f_base, db_base = _harmonic_peaks(renders[name])
+    sounding = ~_nulls(K)
+    # Same frequencies: k F1 for a harmonic string (Fletcher 1964 with B = 0; 12-TET for F1), to 0.01 Hz.
+    assert np.allclose(f_base[sounding], K[sounding] * F1, atol=0.01)
+    assert np.allclose(f_base[sounding], f_engine[sounding], atol=0.01)
+    # Same levels to 0.01 dB (the engine keeps its power tables in single precision).
+    assert np.allclose(db_base[sounding], db_engine[sounding], atol=0.01)
+    # And sample for sample, to single-precision rounding.
+    peak = np.max(np.abs(renders["engine"]))
+    assert np.max(np.abs(renders[name] - renders["engine"])) < 1e-4 * peak
+
+
+@pytest.mark.parametrize("name", ["resonators", "phasors", "karplus_strong"])
+def test_baseline_levels_follow_the_pluck_and_pickup_formulas(renders, name):
+    # Fletcher & Rossing, The Physics of Musical Instruments, 2nd ed. 1998, ch. 2: a string plucked at p has
+    # mode amplitudes a_k = 2 sin(k pi p) / (k^2 pi^2 p (1 - p)); a displacement pickup at x senses
+    # sin(k pi x) (Paiva, Pakarinen & Valimaki, JAES 60(10), 2012). A least-squares fit of damped modes at the
+    # decay rates of the loss law gives each harmonic's amplitude at the window start, referred back to the
+    # note-on. The window starts once the Karplus-Strong excitation (one period plus the comb delay) is in.
+    skip = 4 * BLOCK
+    x = renders[name][skip:skip + 8192]
+    k = np.arange(1, 8)
+    freqs = k * F1
+    since_note_on_s = (BLOCK + skip) / FS  # the renders start one block after the note-on
+    amps = np.abs(fit_damped_modes(x, FS, freqs, _sigma(freqs))) * np.exp(_sigma(freqs) * since_note_on_s)
+    a_k = 2 * np.sin(k * np.pi * PLUCK) / (k**2 * np.pi**2 * PLUCK * (1 - PLUCK))
+    expected = np.abs(a_k * np.sin(k * np.pi * PICKUP))
+    sounding = ~_nulls(k)
+    ratio = amps[sounding] / amps[0]
+    assert np.allclose(ratio, expected[sounding] / expected[0], rtol=0.02)
+    assert np.all(amps[~sounding] < 1e-4 * amps[0])
+
+
+def test_karplus_strong_renders_the_engine_partials(renders):
+    f_engine, db_engine = _harmonic_peaks(renders["engine"])
+    f_ks, db_ks = _harmonic_peaks(renders["karplus_strong"])
+    sounding = ~_nulls(K)
+    cents = 1200 * np.log2(f_ks[sounding] / f_engine[sounding])
+    assert np.max(np.abs(cents)) < 0.3
+    # Levels: within 0.25 dB for harmonics less than 25 dB under the fundamental, 1 dB for the weaker ones.
+    # The one-period excitation is orthogonal to the loop's harmonics only while they do not decay, so each
+    # strong harmonic leaks about P sigma / fs (here -35 dB) of itself into the others: a property of the
+    # method, found by rendering each harmonic alone and adding them up.
+    strong = sounding & (db_engine > db_engine[0] - 25)
+    weak = sounding & ~strong
+    assert np.allclose(db_ks[strong], db_engine[strong], atol=0.25)
+    assert np.allclose(db_ks[weak], db_engine[weak], atol=1.0)
+    # The pluck-position comb 1 - z^-(P/4) removes every 4th harmonic (Jaffe & Smith 1983).
+    assert np.all(db_ks[~sounding] < db_ks[0] - 60)
+    assert np.all(db_engine[~sounding] < db_engine[0] - 60)
+
+
+def test_pluck_comb_magnitude_jaffe_smith():
+    # Jaffe & Smith, "Extensions of the Karplus-Strong plucked-string algorithm", Computer Music Journal
+    # 7(2), 1983: H(z) = 1 - z^-(beta N), |H| at harmonic k = 2 |sin(pi k beta)|; beta = 1/4 gives
+    # |H_1| = 1.41421, |H_2| = 2, |H_4| = 0 (shared references).
+    got = pluck_comb_response(0.25, 128, np.array([1, 2, 3, 4, 8]))
+    assert got == pytest.approx([1.41421, 2.0, 1.41421, 0.0, 0.0], abs=1e-5)
+    beta = 0.2
+    k = np.arange(1, 20)
+    assert pluck_comb_response(beta, 100, k) == pytest.approx(2 * np.abs(np.sin(np.pi * k * beta)), abs=1e-9)
+
+
+@pytest.mark.parametrize(("delay", "omega"), [(0.3, 0.05), (0.75, 0.2), (1.05, 0.6)])
+def test_allpass_phase_delay_checked_with_freqz(delay, omega):
+    # The tuning allpass (eta + z^-1) / (1 + eta z^-1) of Jaffe & Smith (1983): its phase delay at omega,
+    # measured with scipy.signal.freqz, is the fractional delay asked for.
+    eta = allpass_coefficient(delay, omega)
+    _, h = scipy.signal.freqz([eta, 1.0], [1.0, eta], worN=[omega])
+    assert -np.angle(h[0]) / omega == pytest.approx(delay, abs=1e-9)
+    # Jaffe & Smith's low-frequency form (1 - d) / (1 + d) is the limit as omega -> 0.
+    assert allpass_coefficient(delay, 1e-4) == pytest.approx((1 - delay) / (1 + delay), abs=1e-6)
+
+
+def test_stretch_matches_the_loss_law():
+    # Two-point loss (1 - S) + S z^-1: |H(w)|^2 = 1 - 2 S (1 - S) (1 - cos w) (Jaffe & Smith 1983). Its decay
+    # per second, -f1 ln |H|, must equal b3 (2 pi f)^2 at low frequencies for the S chosen.
+    f1, b3 = 220.0, 2e-9
+    s = stretch_for_loss(b3, f1, FS)
+    assert 0 < s < 0.5
+    f = 300.0
+    w = 2 * np.pi * f / FS
+    loss = -f1 * 0.5 * math.log(1 - 2 * s * (1 - s) * (1 - math.cos(w)))
+    assert loss == pytest.approx(b3 * (2 * np.pi * f) ** 2, rel=1e-3)
+    assert stretch_for_loss(1.0, f1, FS) == 0.5  # more loss than a two-point average can give
+
+
+def test_held_chord_keeps_every_voice_and_the_ramp_running():
+    chord = HeldChord.start(voices=6, modes=32, block_frames=BLOCK, ramps=True)
+    assert chord.active == 6
+    previous = chord.engine.pool.g[: chord.active].copy()
+    for i in range(1, 41):
+        chord.swing(i)
+        chord.render()
+        now = chord.engine.pool.g[: chord.active]
+        # A smoothing ramp moves the pickup weights in every block.
+        assert not np.allclose(now, previous, rtol=0, atol=1e-12), f"no ramp in block {i}"
+        previous = now.copy()
+    assert chord.active == 6
+    steady = HeldChord.start(voices=6, modes=32, block_frames=BLOCK, ramps=False)
+    before = steady.engine.pool.g[:6].copy()
+    steady.render()
+    assert np.array_equal(steady.engine.pool.g[:6], before)
+
+
+@pytest.mark.slow
+def test_quick_bench_prints_every_figure_as_json(tmp_path):
+    env = dict(os.environ, OPENBLAS_NUM_THREADS="1")
+    written = tmp_path / "bench.json"
+    proc = subprocess.run([sys.executable, "-m", "rtvoice.cli", "bench", "--quick", "--json", "--write", str(written)],
+                          capture_output=True, text=True, env=env, timeout=300, check=False)
+    assert proc.returncode == 0, proc.stderr
+    result = json.loads(proc.stdout)
+    assert json.loads(written.read_text()) == result
+    for key in ("machine", "grid", "grid_steady", "table_product", "idle", "baselines", "song", "memory",
+                "startup", "realtime_host", "targets", "profile"):
+        assert key in result
+    assert result["machine"]["OPENBLAS_NUM_THREADS"] == "1"
+    assert all(p["active_voices"] == p["voices"] for p in result["grid"])
+    names = {b for row in result["baselines"] for b in row["baselines"]}
+    assert names == {"a_resonators_lfilter", "b_phasor_recursion", "c_karplus_strong"}
+    assert len(result["targets"]) == 5
+    assert all(t["met"] in (True, False) for t in result["targets"])
