@@ -1,0 +1,473 @@
+"""The engine process: the audio callback, MIDI inputs, the command pipe, the shared board.
+
+Threads here: the audio callback (PortAudio's thread, or the silent clock's), the
+main thread (commands, meters, port scans, device checks, all at a relaxed pace)
+and, with ``--record``, the file writer. The callback owns the engine: other
+threads hand it work through deques (appends and pops are atomic) and read what
+it leaves in preallocated arrays. The callback takes no locks, does no I/O and
+allocates only small temporaries.
+"""
+
+from __future__ import annotations
+
+import os
+
+os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")  # before numpy loads: BLAS single-threaded here
+
+import signal  # noqa: E402
+import sys  # noqa: E402
+import threading  # noqa: E402
+import time  # noqa: E402
+import traceback  # noqa: E402
+from collections import deque  # noqa: E402
+from operator import itemgetter  # noqa: E402
+
+import numpy as np  # noqa: E402
+
+from rtvoice.engine import midi  # noqa: E402
+from rtvoice.engine.controls import ControlMap, default_entries  # noqa: E402
+from rtvoice.engine.renderer import Engine  # noqa: E402
+from rtvoice.engine.settings import SettingsError  # noqa: E402
+from rtvoice.host.board import Board  # noqa: E402
+from rtvoice.host.errors import HostError  # noqa: E402
+from rtvoice.host.meters import CallbackMeter, Publisher, VoiceStage  # noqa: E402
+from rtvoice.host.midi_ports import MidiInputs  # noqa: E402
+from rtvoice.host.options import parse_mpe  # noqa: E402
+from rtvoice.host.recorder import Recorder  # noqa: E402
+from rtvoice.host.ring import SampleRing  # noqa: E402
+from rtvoice.host.route import AudioRoute  # noqa: E402
+from rtvoice.host.routing import ControlRouter  # noqa: E402
+from rtvoice.host.timing import BlockClock  # noqa: E402
+
+SWITCH_INTERVAL_S = 0.0005  # let the callback thread take the interpreter lock quickly
+RAMP_IN_S = 0.5  # start quiet: the output rises from silence over this time
+FADE_OUT_S = 0.08  # stop without a click
+PUBLISH_EVERY_S = 1 / 30
+SCAN_EVERY_S = 1.0
+HEALTH_EVERY_S = 0.25
+CONTROL_EVERY_S = 0.004  # controller changes are applied at most this often (the engine smooths them)
+RING_S = 10.0
+STOP_TIMEOUT_S = 1.5
+GAP_NEED_S, GAP_POLL_S, GAP_TRIES = 0.0003, 0.0002, 40
+RT_PRIORITY_ENV = "RTVOICE_RT_PRIORITY"
+DEFAULT_RT_PRIORITY = 70  # SCHED_FIFO priority asked for the audio thread where allowed; 0 keeps it normal
+
+
+def engine_main(conn, config: dict) -> None:
+    """Entry point of the engine process (multiprocessing 'spawn' target)."""
+    signal.signal(signal.SIGINT, signal.SIG_IGN)  # Ctrl-C reaches the whole process group: the UI decides
+    _redirect_output(config.get("engine_log"))
+    sys.setswitchinterval(SWITCH_INTERVAL_S)
+    try:
+        host = EngineHost(conn, config)
+        host.start()
+    except HostError as err:
+        _send(conn, {"type": "fatal", "text": str(err)})
+        return
+    except Exception as err:  # noqa: BLE001 - report anything as one line to the UI, details to stderr
+        traceback.print_exc()
+        _send(conn, {"type": "fatal", "text": f"the engine failed to start: {type(err).__name__}: {err}"})
+        return
+    signal.signal(signal.SIGTERM, lambda *_: host.request_stop())
+    host.run()
+    if host.route.wedged:
+        # PortAudio hangs on a stream whose server died, and would hang this process's exit too.
+        sys.stdout.flush()
+        sys.stderr.flush()
+        os._exit(0)
+
+
+def _redirect_output(path: str | None) -> None:
+    """Send this process's stdout and stderr (C libraries' too) to ``path``, away from a UI's terminal."""
+    if not path:
+        return
+    try:
+        fd = os.open(path, os.O_WRONLY | os.O_CREAT | os.O_APPEND, 0o644)
+    except OSError:
+        return
+    os.dup2(fd, 1)
+    os.dup2(fd, 2)
+    os.close(fd)
+
+
+def _env_int(name: str, default: int) -> int:
+    try:
+        return int(os.environ.get(name, default))
+    except ValueError:
+        return default
+
+
+def _realtime_priority(priority: int) -> int:
+    """Ask for SCHED_FIFO at ``priority`` for the calling thread (Linux applies it per thread).
+
+    An audio server normally gives its clients' threads real-time priority; a server run
+    without it (``jackd --no-realtime``) or the silent clock does not, and then any busy
+    process on the machine can pre-empt the callback. Returns the priority obtained (0: none).
+    """
+    if priority <= 0 or not hasattr(os, "sched_setscheduler"):
+        return 0
+    try:
+        if os.sched_getscheduler(0) in (os.SCHED_FIFO, os.SCHED_RR):
+            return os.sched_getparam(0).sched_priority  # the server gave us one already
+        priority = min(priority, os.sched_get_priority_max(os.SCHED_FIFO))
+        os.sched_setscheduler(0, os.SCHED_FIFO, os.sched_param(priority))
+        return priority
+    except (OSError, AttributeError):
+        return 0
+
+
+def _send(conn, msg: dict) -> bool:
+    try:
+        conn.send(msg)
+        return True
+    except (OSError, EOFError, BrokenPipeError):
+        return False
+
+
+class EngineHost:
+    def __init__(self, conn, config: dict):
+        self.conn = conn
+        self.config = config
+        self.rate, self.block = int(config["rate"]), int(config["block"])
+        self.period_s = self.block / self.rate
+        try:
+            self.engine = Engine(config["settings"], self.rate, self.block)
+        except ValueError as err:
+            raise HostError(str(err)) from None
+        settings = self.engine.settings
+        self.controls = ControlMap(settings.controls)
+        self.board = Board.attach(config["board"])
+        self.clock = BlockClock(self.block, self.rate)
+        self.ring = SampleRing(int(RING_S * self.rate))
+        self.recorder = Recorder(config["record"], self.rate, self.ring) if config.get("record") else None
+        self.midi = MidiInputs(config.get("midi_in") or "all", config.get("client_name") or "rtvoice")
+        self.route = AudioRoute(config.get("audio_device"), self.rate, self.block,
+                                config.get("client_name") or "rtvoice", self.process)
+        self.notes: list[str] = []
+        # Hand-over between threads.
+        self._inbox: deque = deque()  # commands for the callback
+        self._midi_in: deque = deque()  # (arrival_s, status, d1, d2) from the UI
+        self._outbox: deque = deque()  # messages from the callback
+        self.router = ControlRouter(self.engine, self.controls, self._outbox, CONTROL_EVERY_S)
+        # Callback state, preallocated.
+        self._raw: list = []
+        self._events: list = []
+        self._held: list = []
+        self._gain = 0.0
+        self._gain_target = 1.0
+        self._gain_buf = np.empty(self.block)
+        self._idx = np.arange(1, self.block + 1, dtype=float)
+        self._abs = np.empty(self.block)
+        self.faded = False
+        self.stopping = False
+        self.stop_requested_at = 0.0
+        self._ports_changed = False
+        self._rec_reported = False
+        self.load = CallbackMeter(self.period_s)
+        self.voice_stage = VoiceStage()
+        self.publisher = Publisher(self.board, self.ring, self.rate)
+        self.xruns = 0
+        self.midi_events = 0
+        self.blocks = 0
+        self._peak_hold = 0.0
+        self._gr_hold = 0.0
+        self._ui_every = max(1, round(PUBLISH_EVERY_S / self.period_s))
+        self._error_texts: set[str] = set()
+        self.started_at = time.monotonic()
+        self._rt_thread = None
+        self._last_end = self._last_took = 0.0  # perf_counter at the end of the last callback, its duration
+        self._rt_wanted = _env_int(RT_PRIORITY_ENV, DEFAULT_RT_PRIORITY)
+        self.rt_priority = 0
+
+    # -- start-up -----------------------------------------------------------------------
+    def start(self) -> None:
+        self.notes += self.midi.open()
+        self._configure_mpe(self.config.get("mpe"))
+        self.route.open(first=True)
+        self.notes += self.route.notes
+        if self.recorder is not None:
+            self.recorder.start()
+        self._send_ready()
+
+    def _configure_mpe(self, spec: str | None) -> None:
+        """Zones from the --mpe option, sent to the engine as MPE Configuration Messages (RPN 6)."""
+        now = time.monotonic()
+        for zone, members in parse_mpe(spec):
+            status = midi.CONTROL_CHANGE | (midi.LOWER_MASTER if zone == "lower" else midi.UPPER_MASTER)
+            for cc, value in ((midi.CC_RPN_MSB, 0), (midi.CC_RPN_LSB, 6), (midi.CC_DATA_ENTRY_MSB, members),
+                              (midi.CC_RPN_MSB, 127), (midi.CC_RPN_LSB, 127)):
+                self._midi_in.append((now, status, cc, value))
+
+    def _send_ready(self) -> None:
+        _send(self.conn, {
+            "type": "ready", "audio_port": self.route.label, "audio_ports": self.route.ports,
+            "midi_ports": self.midi.names(), "notes": list(self.notes), "rate": self.rate, "block": self.block,
+            "latency_s": getattr(self.route.output, "latency_s", 0.0), "pid": os.getpid(),
+        })
+        self.notes.clear()
+        self._send_controls()
+
+    def _send_controls(self) -> None:
+        _send(self.conn, {"type": "controls", "entries": self.controls.to_dicts()})
+
+    # -- the audio callback ----------------------------------------------------------------
+    def process(self, out, frames: int, underflow: bool, gen: int) -> None:
+        t_enter = time.perf_counter()
+        if self._rt_thread != threading.get_ident():
+            self._rt_thread = threading.get_ident()
+            self.rt_priority = _realtime_priority(self._rt_wanted)
+        if gen != self.route.gen or frames != self.block:
+            if out is not None:
+                out.fill(0.0)
+            return
+        try:
+            self._process(out, underflow)
+        except Exception as err:  # noqa: BLE001 - never let an error stop the stream
+            if out is not None:
+                out.fill(0.0)
+            text = f"audio callback: {type(err).__name__}: {err}"
+            if text not in self._error_texts:
+                self._error_texts.add(text)
+                self._outbox.append({"type": "error", "text": text, "trace": traceback.format_exc()})
+        t_exit = time.perf_counter()
+        self._last_end, self._last_took = t_exit, t_exit - t_enter
+        self.load.add(t_exit - t_enter)
+
+    def _process(self, out, underflow: bool) -> None:
+        now = time.monotonic()
+        if underflow:
+            self.xruns += 1
+        clock = self.clock
+        clock.tick(now)
+        if self._inbox:
+            self._drain_inbox()
+        raw, events, held = self._raw, self._events, self._held
+        raw.clear()
+        events.clear()
+        if held:
+            events.extend(held)  # polled last block, due in this one
+            held.clear()
+        self.midi.poll(now, raw)
+        while self._midi_in:
+            raw.append(self._midi_in.popleft())
+        n = self.block
+        for arrival, status, d1, d2 in raw:
+            pos = clock.position(arrival)
+            if pos < n:
+                events.append((pos, status, d1, d2))
+            else:
+                held.append((pos - n, status, d1, d2))
+        if len(events) > 1:
+            events.sort(key=itemgetter(0))
+        self.midi_events += len(events)
+        y = self.engine.render(events)
+        self.router.after_block(now)
+        self._apply_gain(y)
+        if out is not None:
+            if out.shape[1] == 1:
+                out[:, 0] = y
+            else:
+                out[:] = y[:, None]
+        self.ring.push(y)
+        np.abs(y, out=self._abs)
+        peak = float(self._abs.max())
+        if peak > self._peak_hold:
+            self._peak_hold = peak
+        gr = self.engine.stats.gain_reduction_db
+        if gr > self._gr_hold:
+            self._gr_hold = gr
+        self.blocks += 1
+        if self.blocks % self._ui_every == 0:
+            self.voice_stage.stage(self.engine, self._gain)
+
+    def _apply_gain(self, y: np.ndarray) -> None:
+        g, target = self._gain, self._gain_target
+        if g == target:
+            if g != 1.0:
+                y *= g
+            if g == 0.0 and self.stopping:
+                self.faded = True
+            return
+        rate = 1.0 / ((RAMP_IN_S if target > g else FADE_OUT_S) * self.rate)
+        buf = self._gain_buf
+        np.multiply(self._idx, rate if target > g else -rate, out=buf)
+        buf += g
+        if target > g:
+            np.minimum(buf, target, out=buf)
+        else:
+            np.maximum(buf, target, out=buf)
+        y *= buf
+        self._gain = float(buf[-1])
+        if self._gain == 0.0 and self.stopping:
+            self.faded = True
+
+    def _drain_inbox(self) -> None:
+        engine = self.engine
+        while self._inbox:
+            cmd = self._inbox.popleft()
+            kind = cmd[0]
+            try:
+                if kind == "set":
+                    engine.apply_settings(engine.settings.with_values({cmd[1]: cmd[2]}, source="set_value"))
+                elif kind == "load":
+                    settings = cmd[1]
+                    engine.apply_settings(settings)
+                    self.controls.set_entries(default_entries() if settings.controls is None else settings.controls)
+                    self._outbox.append({"type": "controls"})
+                elif kind == "learn":
+                    self.controls.learn(cmd[1])
+                elif kind == "controls":
+                    self.controls.set_entries(cmd[1])
+                    self._outbox.append({"type": "controls"})
+            except (SettingsError, ValueError) as err:
+                self._outbox.append({"type": "error", "text": str(err)})
+
+    # -- the main thread ------------------------------------------------------------------
+    def request_stop(self) -> None:
+        if not self.stopping:
+            self.stopping = True
+            self.stop_requested_at = time.monotonic()
+            self._gain_target = 0.0
+
+    def run(self) -> None:
+        next_publish = next_scan = next_health = time.monotonic()
+        parent = os.getppid()
+        while True:
+            now = time.monotonic()
+            timeout = max(0.0, min(next_publish, next_health) - now)
+            try:
+                if self.conn.poll(timeout):
+                    while self.conn.poll(0):
+                        self._command(self.conn.recv())
+            except (EOFError, OSError):
+                self.request_stop()  # the UI went away: fade out and leave
+            now = time.monotonic()
+            if now >= next_publish:
+                next_publish = now + PUBLISH_EVERY_S
+                self._wait_for_gap()
+                self._publish()
+                self._forward()
+            if now >= next_health:
+                next_health = now + HEALTH_EVERY_S
+                self._check_audio(now)
+                if os.getppid() != parent:
+                    self.request_stop()
+            if now >= next_scan and not self.stopping:
+                next_scan = now + SCAN_EVERY_S
+                self._wait_for_gap()
+                for note in self.midi.scan():
+                    self._outbox.append({"type": "device", "text": note})
+                    self._ports_changed = True
+            if self.stopping and (self.faded or now - self.stop_requested_at > STOP_TIMEOUT_S
+                                  or not self.route.running()):
+                break
+        self._shutdown()
+
+    def _wait_for_gap(self, need_s: float = GAP_NEED_S) -> None:
+        """Wait (briefly) until the callback has just finished, so that this thread's work of
+        about ``need_s`` fits before the next block: while this thread holds the interpreter
+        lock the callback cannot run."""
+        room_end = self.period_s - self._last_took - need_s
+        for _ in range(GAP_TRIES):
+            since = time.perf_counter() - self._last_end
+            if since <= room_end or since > 4 * self.period_s:  # room now, or no callbacks at all
+                return
+            time.sleep(GAP_POLL_S)
+
+    def _command(self, cmd: tuple) -> None:
+        kind = cmd[0]
+        if kind == "midi":
+            self._midi_in.append((time.monotonic(), cmd[1], cmd[2], cmd[3]))
+        elif kind == "all_notes_off":
+            now = time.monotonic()
+            for ch in range(16):
+                self._midi_in.append((now, midi.CONTROL_CHANGE | ch, midi.CC_SUSTAIN, 0))
+                self._midi_in.append((now, midi.CONTROL_CHANGE | ch, midi.CC_ALL_NOTES_OFF, 0))
+        elif kind == "close":
+            self.request_stop()
+        else:
+            self._inbox.append(cmd)
+
+    def _forward(self) -> None:
+        """Messages the callback left, and coalesced value changes, to the UI."""
+        values = {}
+        controls_changed = False
+        while self._outbox:
+            msg = self._outbox.popleft()
+            kind = msg["type"]
+            if kind == "values":
+                values.update(msg["values"])
+                continue
+            if kind == "controls":
+                controls_changed = True
+                continue
+            if kind == "learned":
+                msg["entries"] = self.controls.to_dicts()
+            if "trace" in msg:
+                sys.stderr.write(msg.pop("trace"))
+            _send(self.conn, msg)
+        if values:
+            _send(self.conn, {"type": "values", "values": values})
+        if controls_changed:
+            self._send_controls()
+        if self._ports_changed:
+            self._ports_changed = False
+            _send(self.conn, {"type": "ports", "audio_port": self.route.label, "midi_ports": self.midi.names()})
+        if self.recorder is not None and self.recorder.error and not self._rec_reported:
+            self._rec_reported = True
+            _send(self.conn, {"type": "error", "text": self.recorder.error})
+
+    def _publish(self) -> None:
+        peak, self._peak_hold = self._peak_hold, 0.0
+        gr, self._gr_hold = self._gr_hold, 0.0
+        med, p99 = self.load.recent()
+        self.publisher.publish({
+            "load_median": med, "load_p99": p99, "xruns": self.xruns, "peak": peak, "gain_reduction_db": gr,
+            "midi_events": self.midi_events, "heartbeat_s": time.monotonic(), "blocks": self.blocks,
+            "block_frames": self.block,
+        }, self.voice_stage.current(), self.engine.pool.modes)
+
+    # -- devices ----------------------------------------------------------------------------
+    def _check_audio(self, now: float) -> None:
+        if self.stopping:
+            return
+        for kind, text in self.route.check(now):
+            if kind == "respawn":
+                self._outbox.append({"type": "respawn", "text": text})
+                self._forward()
+                self.request_stop()
+                continue
+            if kind == "back":
+                self.midi.close()  # the old MIDI clients went down with the server
+                self.midi = MidiInputs(self.midi.mode, self.midi.client_name)
+                for note in self.midi.open():
+                    self._outbox.append({"type": "device", "text": note})
+            self._outbox.append({"type": "device", "text": text})
+            self._ports_changed = True
+
+    # -- shutdown -----------------------------------------------------------------------------
+    def _shutdown(self) -> None:
+        self.route.stop()
+        if self.route.wedged:
+            # the MIDI clients died with the server; closing them could wait forever
+            threading.Thread(target=self.midi.close, daemon=True).start()
+        else:
+            self.midi.close()
+        if self.recorder is not None:
+            self.recorder.stop()
+        elapsed = time.monotonic() - self.started_at
+        summary = {
+            "seconds": elapsed, "blocks": self.blocks, "xruns": self.xruns,
+            "load_median": self.load.run_percentile(0.5), "load_p99": self.load.run_percentile(0.99),
+            "midi_events": self.midi_events, "clock_resyncs": self.clock.resyncs, "rt_priority": self.rt_priority,
+        }
+        if self.recorder is not None:
+            summary.update(record=str(self.recorder.path), record_seconds=self.recorder.seconds,
+                           record_lost=self.recorder.lost)
+        self._forward()
+        _send(self.conn, {"type": "closed", "summary": summary})
+        self.board.close()
+        try:
+            self.conn.close()
+        except OSError:
+            pass

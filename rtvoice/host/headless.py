@@ -1,0 +1,79 @@
+"""``rtvoice play --headless``: the host without a UI, a status line on stderr once a second."""
+
+from __future__ import annotations
+
+import signal
+import sys
+import time
+
+from rtvoice.host.link import EngineLink, Snapshot
+
+STATUS_EVERY_S = 1.0
+
+
+def status_line(s: Snapshot) -> str:
+    peak = f"{s.peak_dbfs:6.1f} dBFS" if s.peak_dbfs > -120 else "  -inf dBFS"
+    return (f"voices {s.voices:3d} | load {100 * s.load_median:4.1f}% median {100 * s.load_p99:5.1f}% p99"
+            f" | xruns {s.xruns} | peak {peak} | limiter {s.gain_reduction_db:4.1f} dB | midi {s.midi_events}")
+
+
+def describe_start(link: EngineLink) -> list[str]:
+    info = link.ready_info
+    lines = [f"audio: {info.get('audio_port', '?')}, {info.get('rate')} Hz, {info.get('block')} frames"
+             f" ({1000 * info.get('block', 0) / max(info.get('rate', 1), 1):.1f} ms)"]
+    ports = info.get("midi_ports") or []
+    lines.append(f"MIDI in: {', '.join(ports) if ports else 'none'}")
+    lines += list(info.get("notes", []))
+    return lines
+
+
+def run_headless(link: EngineLink, duration_s: float | None = None, out=sys.stderr) -> int:
+    """Run until Ctrl-C, SIGTERM, ``duration_s`` or the engine's death; returns the exit status."""
+    stop = {"why": None}
+
+    def on_signal(signum, _frame):
+        stop["why"] = signal.Signals(signum).name
+
+    old = {sig: signal.signal(sig, on_signal) for sig in (signal.SIGINT, signal.SIGTERM)}
+    tty = out.isatty()
+    status = 0
+    try:
+        link.start()
+        for line in describe_start(link):
+            out.write(f"rtvoice: {line}\n")
+        out.flush()
+        started = time.monotonic()
+        next_status = started + STATUS_EVERY_S
+        while stop["why"] is None:
+            time.sleep(0.05)
+            for msg in link.poll_messages():
+                text = msg.get("text") or msg
+                out.write(("\n" if tty else "") + f"rtvoice: {msg.get('type')}: {text}\n")
+            if not link.alive():
+                out.write(("\n" if tty else "") + f"rtvoice: the engine stopped (exit code {link.exitcode})\n")
+                status = 1
+                break
+            now = time.monotonic()
+            if duration_s is not None and now - started >= duration_s:
+                stop["why"] = "duration"
+            if now >= next_status:
+                next_status += STATUS_EVERY_S
+                line = status_line(link.snapshot())
+                out.write(f"\r{line}" if tty else f"{line}\n")
+                out.flush()
+    finally:
+        link.close()
+        for sig, handler in old.items():
+            signal.signal(sig, handler)
+    summary = link.summary
+    if tty:
+        out.write("\n")
+    if summary:
+        out.write(f"rtvoice: stopped ({stop['why'] or 'engine'}) after {summary['seconds']:.1f} s: "
+                  f"load {100 * summary['load_median']:.1f}% median, {100 * summary['load_p99']:.1f}% p99, "
+                  f"xruns {summary['xruns']}, midi events {summary['midi_events']}\n")
+        if "record" in summary:
+            lost = f", {summary['record_lost']} samples lost" if summary["record_lost"] else ""
+            out.write(f"rtvoice: recorded {summary['record_seconds']:.1f} s to {summary['record']}{lost}\n")
+    out.flush()
+    return status

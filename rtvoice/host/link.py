@@ -1,0 +1,359 @@
+"""The UI side of the engine: start it in its own process, send it commands, read its meters.
+
+The engine runs in a separate process (multiprocessing, 'spawn') so that no
+Python work in the UI ever holds the interpreter lock the audio callback needs.
+Commands travel over a pipe; what the UI draws comes back through shared memory
+(:mod:`rtvoice.host.board`) and is read without waiting. Messages from the
+engine (controller learned, device lost, errors) queue up for
+:meth:`EngineLink.poll_messages`.
+"""
+
+from __future__ import annotations
+
+import multiprocessing
+import os
+import time
+from collections import deque
+from dataclasses import dataclass, field, replace
+from typing import Any
+
+import numpy as np
+
+from rtvoice.engine.controls import check_entries
+from rtvoice.engine.settings import Settings, SettingsError
+from rtvoice.host.board import SILENT_DB, SPECTRUM_BINS, Board
+from rtvoice.host.errors import HostError
+from rtvoice.host.options import parse_mpe
+
+START_TIMEOUT_S = 30.0  # spawning imports numpy and scipy: seconds on a slow machine
+CLOSE_TIMEOUT_S = 5.0
+DEFAULT_CLIENT_NAME = "rtvoice"
+
+#: Message types the link keeps for itself (they update its caches) instead of handing to the UI.
+_INTERNAL = ("ready", "controls", "values", "ports", "closed", "fatal", "respawn")
+
+
+@dataclass
+class Snapshot:
+    """What the UI shows, as of the engine's last update (about 30 times a second)."""
+
+    voices: int = 0
+    load_median: float = 0.0  # callback time as a share of the block period
+    load_p99: float = 0.0
+    xruns: int = 0
+    peak_dbfs: float = SILENT_DB
+    gain_reduction_db: float = 0.0
+    midi_events: int = 0  # running count of MIDI events handled
+    note: int = -1  # MIDI note of the loudest voice, -1 for none
+    f0_hz: float = 0.0
+    mode_levels_db: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    mode_freqs_hz: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    spectrum_db: np.ndarray = field(default_factory=lambda: np.full(SPECTRUM_BINS, SILENT_DB))
+    spectrum_bin_hz: float = 0.0
+    audio_port: str = ""
+    midi_ports: list[str] = field(default_factory=list)
+    engine_alive: bool = False
+
+
+class EngineLink:
+    """Client of the engine process. Every method returns at once; none raises when the engine died,
+    except :meth:`start` (and the validation in :meth:`set_value`)."""
+
+    def __init__(self, settings: Settings, *, audio_device: str | None = None, rate: int = 48000,
+                 block: int = 256, midi_in: str = "all", record: str | None = None,
+                 client_name: str = DEFAULT_CLIENT_NAME, mpe: str | None = None,
+                 engine_log: str | None = None):
+        parse_mpe(mpe)  # a bad zone spec fails here, not in the engine process
+        self._settings = settings
+        self.config = {
+            "audio_device": audio_device, "rate": int(rate), "block": int(block),
+            "midi_in": midi_in, "record": None if record is None else str(record),
+            "client_name": client_name, "mpe": mpe,
+            "engine_log": None if engine_log is None else str(engine_log),  # engine stdout/stderr go here
+        }
+        self._process: multiprocessing.process.BaseProcess | None = None
+        self._conn = None
+        self._board: Board | None = None
+        self._messages: deque[dict] = deque()
+        self._controls: list[dict] = []
+        self._audio_port = ""
+        self._midi_ports: list[str] = []
+        self._closed = False
+        self.summary: dict = {}  # the engine's run summary, after close()
+        self._old: list = []  # processes that asked to be replaced, joined when they end
+        self._respawning = False
+        self._restarted = False
+        self.ready_info: dict = {}  # what the engine reported when it started
+
+    # -- life cycle -------------------------------------------------------------------
+    def start(self) -> None:
+        """Spawn the engine process and wait until its audio runs; HostError says why not."""
+        if self.alive():
+            return
+        self._messages.clear()
+        self._spawn()
+        proc, conn = self._process, self._conn
+        deadline = time.monotonic() + START_TIMEOUT_S
+        while time.monotonic() < deadline:
+            if conn.poll(0.05):
+                try:
+                    msg = conn.recv()
+                except (EOFError, OSError):
+                    break
+                if msg.get("type") == "fatal":
+                    self._reap()
+                    raise HostError(msg.get("text", "the engine could not start"))
+                self._take(msg)
+                if msg.get("type") == "ready":
+                    return
+            elif not proc.is_alive():
+                break
+        code = proc.exitcode
+        self._reap()
+        if code is None:
+            raise HostError(f"the engine process did not start within {START_TIMEOUT_S:.0f} s")
+        raise HostError(f"the engine process exited while starting (exit code {code})")
+
+    def _spawn(self) -> None:
+        """Start an engine process (not waiting for it) on the current sound and controller map."""
+        from rtvoice.host.engine_process import engine_main
+
+        ctx = multiprocessing.get_context("spawn")
+        parent, child = ctx.Pipe(duplex=True)
+        if self._board is None:
+            self._board = Board.create()
+        settings = self._settings
+        if self._controls and settings.controls is None:
+            settings = replace(settings, controls=tuple(self._controls))  # a learned map survives a restart
+        config = dict(self.config, settings=settings, board=self._board.name)
+        saved = os.environ.get("OPENBLAS_NUM_THREADS")
+        os.environ["OPENBLAS_NUM_THREADS"] = "1"  # inherited by the engine process: BLAS single-threaded
+        try:
+            proc = ctx.Process(target=engine_main, args=(child, config), name="rtvoice-engine", daemon=True)
+            proc.start()
+        finally:
+            if saved is None:
+                os.environ.pop("OPENBLAS_NUM_THREADS", None)
+            else:
+                os.environ["OPENBLAS_NUM_THREADS"] = saved
+        child.close()
+        self._process, self._conn, self._closed = proc, parent, False
+        self._respawning = False
+
+    def _respawn(self) -> None:
+        """The engine asked for a fresh process (its audio library is stuck on a lost server)."""
+        old = self._process
+        if self._conn is not None:
+            self._conn.close()
+        if old is not None:
+            self._old.append(old)
+        self._spawn()
+        self._restarted = True
+
+    def alive(self) -> bool:
+        return self._process is not None and not self._closed and self._process.is_alive()
+
+    def restart(self) -> None:
+        """Stop the engine if it still runs and start a new one with the current sound and controls."""
+        self.close()
+        self.start()
+
+    def close(self) -> None:
+        """Ask the engine to fade out and exit; wait a few seconds, then force it."""
+        proc = self._process
+        if proc is None:
+            return
+        if proc.is_alive():
+            self._send(("close",))
+            deadline = time.monotonic() + CLOSE_TIMEOUT_S
+            while proc.is_alive() and time.monotonic() < deadline:
+                self._pump(0.05)
+        self._pump(0.0)
+        self._reap()
+
+    def _reap(self) -> None:
+        proc = self._process
+        if proc is not None:
+            proc.join(0.5)
+            if proc.is_alive():
+                proc.terminate()
+                proc.join(2.0)
+            if proc.is_alive():
+                proc.kill()
+                proc.join(2.0)
+        if self._conn is not None:
+            self._conn.close()
+        if self._board is not None:
+            self._board.close()
+        self._process, self._conn, self._board = None, None, None
+        self._closed = True
+        for old in self._old:
+            old.join(1.0)
+            if old.is_alive():
+                old.kill()
+        self._old.clear()
+
+    @property
+    def exitcode(self) -> int | None:
+        return None if self._process is None else self._process.exitcode
+
+    # -- commands ---------------------------------------------------------------------
+    @property
+    def settings(self) -> Settings:
+        """The sound as the engine has it, as far as this side knows (controller moves included)."""
+        self._pump(0.0)
+        return self._settings
+
+    def set_value(self, name: str, value: Any) -> None:
+        """Change one parameter (canonical dotted name); SettingsError here when not allowed."""
+        self._settings = self._settings.with_values({name: value}, source="set_value")
+        self._send(("set", name, self._settings.get(name)))
+
+    def load_settings(self, settings: Settings) -> None:
+        """Play a whole sound (a preset); its ``[[control]]`` map, if any, replaces the current one."""
+        if not isinstance(settings, Settings):
+            raise SettingsError("settings", settings, "expected a Settings object")
+        self._settings = settings
+        self._send(("load", settings))
+
+    def note_on(self, note: int, velocity: int = 100, channel: int = 0) -> None:
+        _check_byte("note", note)
+        _check_byte("velocity", velocity)
+        _check_channel(channel)
+        self._send(("midi", 0x90 | channel, note, velocity))
+
+    def note_off(self, note: int, channel: int = 0) -> None:
+        _check_byte("note", note)
+        _check_channel(channel)
+        self._send(("midi", 0x80 | channel, note, 0))
+
+    def send_midi(self, status: int, data1: int = 0, data2: int = 0) -> None:
+        """Any channel-voice message, as if it came from a MIDI input."""
+        if not 0x80 <= status <= 0xEF:
+            raise SettingsError("status", status, "expected a channel message status byte 0x80..0xEF")
+        _check_byte("data1", data1)
+        _check_byte("data2", data2)
+        self._send(("midi", status, data1, data2))
+
+    def all_notes_off(self) -> None:
+        self._send(("all_notes_off",))
+
+    def learn(self, name: str | None) -> None:
+        """Map the next controller moved to parameter ``name``; None cancels learning."""
+        if name is not None:
+            check_entries([{"target": name, "cc": 1}], source="learn")
+        self._send(("learn", name))
+
+    def set_controls(self, entries: list[dict]) -> None:
+        """Replace the controller map (entries as returned by :meth:`controls`)."""
+        checked = check_entries(entries, source="controls")
+        self._controls = [dict(e) for e in checked]
+        self._send(("controls", checked))
+
+    def controls(self) -> list[dict]:
+        """The controller map now in use, one dict per entry (the preset's ``[[control]]`` form)."""
+        self._pump(0.0)
+        return [dict(e) for e in self._controls]
+
+    def snapshot(self) -> Snapshot:
+        """The engine's latest meters and UI data; never waits."""
+        alive = self.alive()
+        board = self._board
+        if board is None:
+            return Snapshot(audio_port=self._audio_port, midi_ports=list(self._midi_ports), engine_alive=False)
+        fields, levels, freqs, spec = board.read()
+        n = int(fields["n_modes"])
+        return Snapshot(
+            voices=int(fields["voices"]), load_median=fields["load_median"], load_p99=fields["load_p99"],
+            xruns=int(fields["xruns"]), peak_dbfs=fields["peak_dbfs"],
+            gain_reduction_db=fields["gain_reduction_db"], midi_events=int(fields["midi_events"]),
+            note=int(fields["note"]), f0_hz=fields["f0_hz"], mode_levels_db=levels[:n],
+            mode_freqs_hz=freqs[:n], spectrum_db=spec, spectrum_bin_hz=fields["spectrum_bin_hz"],
+            audio_port=self._audio_port, midi_ports=list(self._midi_ports), engine_alive=alive,
+        )
+
+    def poll_messages(self) -> list[dict]:
+        """Messages from the engine since the last call: 'learned', 'error', 'device', 'exited'."""
+        self._pump(0.0)
+        out = list(self._messages)
+        self._messages.clear()
+        return out
+
+    # -- plumbing ---------------------------------------------------------------------
+    def _send(self, command: tuple) -> None:
+        if self._conn is None or self._closed:
+            return
+        try:
+            self._conn.send(command)
+        except (OSError, EOFError, BrokenPipeError):
+            self._lost()
+
+    def _pump(self, timeout_s: float) -> None:
+        conn = self._conn
+        if conn is None:
+            return
+        try:
+            while conn.poll(timeout_s):
+                self._take(conn.recv())
+                timeout_s = 0.0
+        except (EOFError, OSError):
+            if self._respawning and not self._closed:
+                self._respawn()
+            else:
+                self._lost()
+        if self._old:
+            for p in self._old:
+                p.join(0)
+            self._old = [p for p in self._old if p.is_alive()]
+
+    def _lost(self) -> None:
+        if self._conn is not None and not self._closed:
+            proc = self._process
+            code = proc.exitcode if proc is not None else None
+            if code is None and proc is not None:
+                proc.join(0.2)
+                code = proc.exitcode
+            if not self.summary:
+                self._messages.append({"type": "exited", "text": f"the engine stopped (exit code {code})"})
+            self._conn.close()
+            self._conn = None
+            self._closed = True
+
+    def _take(self, msg: dict) -> None:
+        kind = msg.get("type")
+        if kind == "respawn":
+            self._respawning = True
+            self._messages.append({"type": "device", "text": msg.get("text", "restarting the engine")})
+        elif kind == "ready" and self._restarted:
+            self._restarted = False
+            self._messages.append({"type": "device", "text": f"audio output back: {msg.get('audio_port', '')}"})
+        elif kind == "fatal":
+            self._messages.append({"type": "error", "text": msg.get("text", "the engine could not start")})
+        if kind in ("ready", "ports"):
+            self._audio_port = msg.get("audio_port", self._audio_port)
+            self._midi_ports = list(msg.get("midi_ports", self._midi_ports))
+            if kind == "ready":
+                self.ready_info = msg
+        elif kind == "controls":
+            self._controls = [dict(e) for e in msg["entries"]]
+        elif kind == "values":
+            try:
+                self._settings = self._settings.with_values(msg["values"], source="engine")
+            except SettingsError:
+                pass
+        elif kind == "closed":
+            self.summary = msg.get("summary", {})
+        if kind == "learned":
+            self._controls = [dict(e) for e in msg.get("entries", self._controls)]
+        if kind not in _INTERNAL:
+            self._messages.append(msg)
+
+
+def _check_byte(what: str, value: int) -> None:
+    if isinstance(value, bool) or not isinstance(value, int) or not 0 <= value <= 127:
+        raise SettingsError(what, value, "expected a whole number 0..127")
+
+
+def _check_channel(channel: int) -> None:
+    if isinstance(channel, bool) or not isinstance(channel, int) or not 0 <= channel <= 15:
+        raise SettingsError("channel", channel, "expected 0..15 (MIDI channels 1-16)")

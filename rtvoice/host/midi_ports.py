@@ -1,0 +1,204 @@
+"""MIDI inputs: a virtual port named after rtvoice plus hardware (or named) inputs, polled.
+
+Messages are read with python-rtmidi's non-blocking ``get_message()`` from inside
+the audio callback, never through a callback in the library's own thread (on
+JACK, messages taken that way were seen corrupted under interpreter-lock
+contention). Each port's arrival times come from rtmidi's delta times
+(:class:`~rtvoice.host.timing.PortClock`).
+
+Ports are opened and closed from the engine process's main thread, which
+publishes the current set as one tuple; the callback only ever reads that tuple.
+A port that vanished is dropped from the tuple first and closed a little later,
+when no callback can still be using it.
+"""
+
+from __future__ import annotations
+
+import sys
+import time
+from dataclasses import dataclass, field
+
+from rtvoice.host import jackinfo
+from rtvoice.host.timing import PortClock
+
+QUEUE_SIZE = 4096  # messages rtmidi buffers per port between polls
+CLOSE_DELAY_S = 0.5
+VIRTUAL_PORT = "in"
+
+
+def load_rtmidi():
+    """The rtmidi module, or None when python-rtmidi cannot load."""
+    try:
+        import rtmidi
+    except (ImportError, OSError):
+        return None
+    return rtmidi
+
+
+def choose_api(rtmidi) -> int:
+    """The MIDI API that fits this machine: JACK when its server runs, else the platform's own."""
+    compiled = rtmidi.get_compiled_api()
+    if rtmidi.API_UNIX_JACK in compiled and jackinfo.server_running():
+        return rtmidi.API_UNIX_JACK
+    for api, platform in ((rtmidi.API_LINUX_ALSA, "linux"), (rtmidi.API_MACOSX_CORE, "darwin"),
+                          (rtmidi.API_WINDOWS_MM, "win32")):
+        if api in compiled and sys.platform.startswith(platform):
+            return api
+    return compiled[0] if compiled else rtmidi.API_UNSPECIFIED
+
+
+def api_name(rtmidi, api: int) -> str:
+    try:
+        return rtmidi.get_api_display_name(api)
+    except Exception:  # noqa: BLE001 - older python-rtmidi
+        return str(api)
+
+
+@dataclass
+class MidiPort:
+    name: str
+    midiin: object
+    virtual: bool = False
+    clock: PortClock = field(default_factory=PortClock)
+
+
+class MidiInputs:
+    """The open MIDI inputs for ``mode``: 'all' (hardware + virtual), 'virtual', 'none' or a name."""
+
+    def __init__(self, mode: str, client_name: str = "rtvoice"):
+        self.mode = mode
+        self.client_name = client_name
+        self.rtmidi = None
+        self.api = None
+        self.inputs: tuple[MidiPort, ...] = ()
+        self.events = 0
+        self._closing: list[tuple[float, MidiPort]] = []
+        self._count = 0
+        self._lister = None
+
+    @property
+    def virtual_name(self) -> str:
+        return f"{self.client_name}-midi:{VIRTUAL_PORT}" if self.api == getattr(self.rtmidi, "API_UNIX_JACK", -1) \
+            else f"{self.client_name}-midi {VIRTUAL_PORT}"
+
+    def open(self) -> list[str]:
+        """Open the virtual port and every matching input; returns notes for the user."""
+        if self.mode == "none":
+            return []
+        self.rtmidi = load_rtmidi()
+        if self.rtmidi is None:
+            return ["MIDI input is off: python-rtmidi cannot load (pip install python-rtmidi)"]
+        self.api = choose_api(self.rtmidi)
+        notes = []
+        if self.mode in ("all", "virtual"):
+            try:
+                mi = self._new_in(f"{self.client_name}-midi")
+                mi.open_virtual_port(VIRTUAL_PORT)
+                self.inputs = (*self.inputs, MidiPort(self.virtual_name, mi, virtual=True))
+            except Exception as err:  # noqa: BLE001 - rtmidi raises its own error types
+                notes.append(f"no virtual MIDI port on {api_name(self.rtmidi, self.api)}: {err}")
+        if self.mode != "virtual":
+            notes += self.scan()
+        return notes
+
+    def _new_in(self, name: str):
+        mi = self.rtmidi.MidiIn(self.api, name=name, queue_size_limit=QUEUE_SIZE)
+        mi.ignore_types(sysex=True, timing=True, active_sense=True)
+        return mi
+
+    def available(self) -> list[str]:
+        """Names of the sources that could be opened now."""
+        if self._lister is None:
+            self._lister = self._new_in(f"{self.client_name}-scan")
+        try:
+            return list(self._lister.get_ports())
+        except Exception:  # noqa: BLE001
+            return []
+
+    def wanted(self, names: list[str]) -> list[str]:
+        """Of the sources ``names``, those this mode opens."""
+        own = (f"{self.client_name}-",)
+        names = [n for n in names if not n.startswith(own)]
+        if self.mode == "all":
+            if self.api == self.rtmidi.API_UNIX_JACK:
+                physical = set(jackinfo.ports(jackinfo.MIDI_TYPE, jackinfo.PORT_IS_OUTPUT | jackinfo.PORT_IS_PHYSICAL))
+                return [n for n in names if n in physical]
+            return [n for n in names if "through" not in n.lower()]
+        needle = self.mode.lower()
+        return [n for n in names if needle in n.lower()]
+
+    def scan(self) -> list[str]:
+        """Open inputs that appeared, close those that vanished; returns notes for the user."""
+        if self.rtmidi is None or self.mode in ("none", "virtual"):
+            return self._reap()
+        notes = []
+        names = self.available()
+        open_names = {p.name for p in self.inputs if not p.virtual}
+        keep = []
+        for p in self.inputs:
+            if p.virtual or p.name in names:
+                keep.append(p)
+            else:
+                self._closing.append((time.monotonic() + CLOSE_DELAY_S, p))
+                notes.append(f"MIDI input gone: {p.name}")
+        for name in self.wanted(names):
+            if name in open_names:
+                continue
+            try:
+                self._count += 1
+                mi = self._new_in(f"{self.client_name}-in{self._count}")
+                mi.open_port(names.index(name), VIRTUAL_PORT)
+            except Exception as err:  # noqa: BLE001
+                notes.append(f"cannot open MIDI input {name}: {err}")
+                continue
+            keep.append(MidiPort(name, mi))
+            notes.append(f"MIDI input opened: {name}")
+        if len(keep) != len(self.inputs) or any(a is not b for a, b in zip(keep, self.inputs, strict=False)):
+            self.inputs = tuple(keep)
+        return notes + self._reap()
+
+    def _reap(self) -> list[str]:
+        now = time.monotonic()
+        due = [p for t, p in self._closing if t <= now]
+        self._closing = [(t, p) for t, p in self._closing if t > now]
+        for p in due:
+            _close(p.midiin)
+        return []
+
+    def names(self) -> list[str]:
+        return [p.name + (" (virtual)" if p.virtual else "") for p in self.inputs]
+
+    # -- audio callback -----------------------------------------------------------------
+    def poll(self, now_s: float, out: list) -> None:
+        """Append (arrival_s, status, data1, data2) for every channel message waiting."""
+        for port in self.inputs:
+            get = port.midiin.get_message
+            clock = port.clock
+            while True:
+                item = get()
+                if item is None:
+                    break
+                msg, delta = item
+                arrival = clock.arrival(delta, now_s)
+                if not msg or not 0x80 <= msg[0] <= 0xEF:
+                    continue  # system messages: nothing for the voices
+                out.append((arrival, msg[0], msg[1] if len(msg) > 1 else 0, msg[2] if len(msg) > 2 else 0))
+
+    def close(self) -> None:
+        ports, self.inputs = self.inputs, ()
+        for p in ports:
+            _close(p.midiin)
+        for _, p in self._closing:
+            _close(p.midiin)
+        self._closing = []
+        if self._lister is not None:
+            _close(self._lister)
+            self._lister = None
+
+
+def _close(midiin) -> None:
+    try:
+        midiin.close_port()
+        midiin.delete()
+    except Exception:  # noqa: BLE001 - a port of a vanished device may fail to close
+        pass

@@ -1,0 +1,98 @@
+"""Controllers to parameters: the engine's hooks, through a ControlMap, into the engine.
+
+The engine calls its hooks inside ``render()`` in event order. Changes are
+collected and applied at most every ``every_s`` seconds, after a block, as one
+new Settings: live parameters (pickups, gain, electronics) then glide on the
+ringing notes through the engine's own smoothing, so a controller sweep does not
+zipper; the others act on the next note. Per-note MPE values set the excitation
+of each note as it starts (cached, as 7-bit controllers repeat values).
+"""
+
+from __future__ import annotations
+
+from collections import deque
+
+from rtvoice.engine.controls import ControlMap
+from rtvoice.engine.renderer import Engine
+from rtvoice.engine.settings import SettingsError
+
+APPLY_EVERY_S = 0.004
+EXCITATION_CACHE = 512
+
+
+class ControlRouter:
+    def __init__(self, engine: Engine, controls: ControlMap, outbox: deque | None = None,
+                 every_s: float = APPLY_EVERY_S):
+        self.engine = engine
+        self.controls = controls
+        self.outbox = outbox if outbox is not None else deque()
+        self.every_s = every_s
+        self.pending: dict = {}
+        self._last = -1e9
+        self._cache: dict = {}
+        self._cache_settings = None
+        self._reported: set[str] = set()
+        engine.controller_hook = self._on_cc
+        engine.pressure_hook = self._on_pressure
+        engine.excitation_hook = self._note_excitation
+
+    def _member(self, channel: int) -> bool:
+        return self.engine.channels.zone_master(channel) is not None
+
+    def _on_cc(self, channel: int, cc: int, value: int) -> None:
+        changes = self.controls.control_change(channel, cc, value, self._member(channel))
+        if self.controls.learned is not None:
+            entry, self.controls.learned = self.controls.learned, None
+            self.outbox.append({"type": "learned", "name": entry["target"], "entry": entry,
+                                "cc": entry["cc"], "channel": channel + 1})
+        for name, v in changes:
+            self.pending[name] = v
+
+    def _on_pressure(self, channel: int, value01: float) -> None:
+        for name, v in self.controls.pressure(channel, value01, self._member(channel)):
+            self.pending[name] = v
+
+    def _note_excitation(self, channel: int):
+        if not self._member(channel):
+            return None
+        values = self.controls.note_values(channel)
+        if not values:
+            return None
+        engine = self.engine
+        s = engine.settings
+        if s is not self._cache_settings:
+            self._cache_settings = s
+            self._cache.clear()
+        key = (values.get("excitation.position", s.get("excitation.position")),
+               values.get("excitation.width", s.get("excitation.width")))
+        initial = self._cache.get(key)
+        if initial is None:
+            if len(self._cache) >= EXCITATION_CACHE:
+                self._cache.clear()
+            initial = self._cache[key] = engine.excitation_initial(*key)
+        return initial
+
+    def after_block(self, now_s: float) -> None:
+        """Apply the collected changes when ``every_s`` has passed since the last time."""
+        if self.pending and now_s - self._last >= self.every_s:
+            self._last = now_s
+            self.apply_pending()
+
+    def apply_pending(self) -> None:
+        engine = self.engine
+        n_pickups = len(engine.settings.pickups)
+        changes = {n: v for n, v in self.pending.items()
+                   if not (n.startswith("pickup.") and int(n.split(".")[1]) >= n_pickups)}
+        self.pending.clear()
+        if not changes:
+            return
+        try:
+            new = engine.settings.with_values(changes, source="controller")
+        except SettingsError as err:
+            text = str(err)
+            if text not in self._reported:
+                self._reported.add(text)
+                self.outbox.append({"type": "error", "text": text})
+            return
+        engine.apply_settings(new)
+        self.outbox.append({"type": "values", "values": changes})
