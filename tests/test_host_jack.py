@@ -148,6 +148,8 @@ def host(jack_server, tmp_path_factory):
 
 
 def test_played_note_has_its_equal_tempered_pitch(host, tmp_path):
+    # The listening-safety note comes first, before any sound (README: start quiet).
+    assert host.log().splitlines()[0].startswith("rtvoice: listening safety:")
     host.reset()
     x = record(host, tmp_path, 2.6, [
         (0.3, lambda: host.send(0x90, 69, 90)),

@@ -73,8 +73,12 @@ def test_board_reader_never_sees_a_half_written_update():
     t = threading.Thread(target=write)
     t.start()
     try:
-        seen = set()
-        for _ in range(3000):
+        seen: set = set()
+        deadline = time.monotonic() + 5.0
+        reads = 0
+        # Read until the writer has moved on a few times (the GIL may keep it waiting at first).
+        while reads < 3000 or (len(seen) < 5 and time.monotonic() < deadline):
+            reads += 1
             fields, levels, freqs, spec = reader_board.read()
             if fields["blocks"] == 0:
                 continue  # the state before the first update: consistent, but not all one value

@@ -104,7 +104,8 @@ def test_rtvoice_in_tmux_shows_the_bars_rise_for_a_midi_note(jack_server, tmp_pa
 
         sender.send_message([0xB0, 123, 0])  # all notes off: released, the bars fall back
         sender.send_message([0x80, 52, 0])
-        quiet = wait_screen(session_name, r"voices  0")
+        # Both the meters and the status line must settle: the status redraws on its own timer.
+        quiet = wait_screen(session_name, r"\A(?![^\n]*ringing)[\s\S]*voices  0")
         assert "ringing" not in quiet.splitlines()[0]
 
         tmux("send-keys", "-t", session_name, "C-q")  # nothing unsaved: quits without asking

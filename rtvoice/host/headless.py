@@ -17,6 +17,10 @@ def status_line(s: Snapshot) -> str:
             f" | xruns {s.xruns} | peak {peak} | limiter {s.gain_reduction_db:4.1f} dB | midi {s.midi_events}")
 
 
+SAFETY_LINE = ("listening safety: loud sound damages hearing. Turn your amplifier or headphones down "
+               "before the first note; the output fades in and never exceeds -1 dBFS.")
+
+
 def describe_start(link: EngineLink) -> list[str]:
     info = link.ready_info
     lines = [f"audio: {info.get('audio_port', '?')}, {info.get('rate')} Hz, {info.get('block')} frames"
@@ -38,6 +42,7 @@ def run_headless(link: EngineLink, duration_s: float | None = None, out=sys.stde
     tty = out.isatty()
     status = 0
     try:
+        out.write(f"rtvoice: {SAFETY_LINE}\n")
         link.start()
         for line in describe_start(link):
             out.write(f"rtvoice: {line}\n")
