@@ -77,6 +77,7 @@ class RtvoiceApp(PresetActions, App[int]):
         Binding("ctrl+g", "toggle_view", "view", priority=True),
         Binding("ctrl+l", "learn", "learn", priority=True),
         Binding("ctrl+r", "restart_engine", "restart", show=False, priority=True),
+        Binding("f2", "survey", "map"),
     ]
 
     def __init__(
@@ -392,6 +393,11 @@ class RtvoiceApp(PresetActions, App[int]):
 
     def action_help(self) -> None:
         self.push_screen(HelpScreen())
+
+    def action_survey(self) -> None:
+        from rtvoice.ui.screens.survey import SurveyScreen
+
+        self.push_screen(SurveyScreen(self.session.settings, self.link.snapshot().note))
 
     def action_toggle_view(self) -> None:
         self.view = VIEWS[(VIEWS.index(self.view) + 1) % len(VIEWS)]

@@ -22,6 +22,7 @@ HELP_KEYS = [
         ("ctrl+g", "switch the top view: harmonics / output spectrum"),
         ("ctrl+l", "learn: the next control moved drives the chosen parameter"),
         ("ctrl+r", "restart the engine if it stopped"),
+        ("f2", "brightness map over pickup and pluck positions; arrows move the live sound"),
         ("tab", "move between the string and the parameter list"),
     ]),
     ("playing", [

@@ -1,0 +1,62 @@
+"""The survey view in the UI: the map is the survey's, and its cursor moves the live sound."""
+
+import asyncio
+
+import numpy as np
+import pytest
+from test_ui_helpers import fresh, start_link, user_home, wait_for
+
+from rtvoice.survey import survey_grid
+from rtvoice.ui.app import RtvoiceApp
+from rtvoice.ui.screens.survey import SHADES, SurveyScreen, map_grids
+
+
+@pytest.fixture(scope="module")
+def link():
+    lk = start_link()
+    yield lk
+    lk.close()
+
+
+@pytest.fixture(autouse=True)
+def home(tmp_path, monkeypatch):
+    return user_home(tmp_path, monkeypatch)
+
+
+def test_map_cursor_moves_the_live_pickup_and_pluck(link):
+    async def body():
+        app = RtvoiceApp(fresh(link), safety_note=False)
+        async with app.run_test(size=(80, 24)) as pilot:
+            await pilot.pause()
+            await pilot.press("f2")
+            await pilot.pause()
+            screen = app.screen
+            assert isinstance(screen, SurveyScreen)
+            col0, row0 = screen.col, screen.row
+            await pilot.press("right", "right", "right", "down")
+            await pilot.pause()
+            want_x, want_p = screen.pickups[col0 + 3], screen.plucks[row0 + 1]
+            ok = await wait_for(pilot, lambda: link.settings.get("pickup.0.position") == pytest.approx(want_x))
+            text = screen.map_text()
+            await pilot.press("escape")
+            await pilot.pause()
+            return app, ok, want_x, want_p, text, screen
+
+    app, ok, want_x, want_p, text, screen = asyncio.run(body())
+    assert ok  # the engine process got the new pickup position
+    assert app.session.settings.get("pickup.0.position") == pytest.approx(want_x)
+    assert app.session.settings.get("excitation.position") == pytest.approx(want_p)
+    assert "[" in text and "]" in text
+
+
+def test_map_shades_follow_the_survey_centroid(link):
+    # The shading is the survey's spectral centroid: brighter towards the bridge (common practice among
+    # players and builders), and the brightest cell is where survey_grid puts the highest centroid.
+    settings = fresh(link).settings
+    screen = SurveyScreen(settings, 40)
+    pickups, plucks = map_grids(settings)
+    plane = survey_grid(settings, 40, pickups, plucks)
+    shades = np.array([[SHADES.index(ch) for ch in row] for row in screen.rows])
+    i, j = np.unravel_index(np.argmax(plane.centroid_ratio), plane.centroid_ratio.shape)
+    assert shades[i, j] == len(SHADES) - 1
+    assert shades[:, :8].mean() > shades[:, -8:].mean()
