@@ -49,9 +49,10 @@ def test_engine_plays_a_note_and_the_snapshot_shows_it(link):
     snap = link.snapshot()
     assert snap.engine_alive and snap.voices == 0 and snap.note == -1
     assert "silent clock" in snap.audio_port
-    link.note_on(57, 100)
+    link.note_on(57, 113)
     snap = _wait(lambda: (s := link.snapshot()).voices and s.f0_hz > 0 and s)
     assert snap.note == 57
+    assert snap.velocity == 113  # the UI predicts the attack at the voice's own velocity
     b = link.settings.get("string.inharmonicity")
     assert snap.f0_hz == pytest.approx(440 * 2 ** ((57 - 69) / 12) * math.sqrt(1 + b), rel=1e-9)
     n = Settings.defaults().get("string.modes")

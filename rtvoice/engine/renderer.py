@@ -335,6 +335,7 @@ class Engine:
         self._set_bend(v, bend)
         pool.state[v] = SOUNDING
         pool.note[v] = note
+        pool.velocity[v] = velocity
         pool.channel[v] = ch
         self._order += 1
         pool.order[v] = self._order

@@ -66,6 +66,7 @@ class VoicePool:
         # Per-slot facts.
         self.state = np.zeros(slots, np.int8)
         self.note = np.zeros(slots, np.int16)
+        self.velocity = np.zeros(slots, np.int16)  # note-on velocity 1..127
         self.channel = np.zeros(slots, np.int8)
         self.order = np.zeros(slots, np.int64)  # start order, for stealing ties
         self.omega1 = np.ones(slots)  # bent fundamental, rad/s: velocity-pickup reference
@@ -128,7 +129,7 @@ class VoicePool:
         if v != last:
             for arr in (self.s, self.g, self.sigma, self.sigma_hold, self.omega_base, self.omega,
                         self.p_block, self.A_rows, self.deriv, self.audible, self.state, self.note,
-                        self.channel, self.order, self.omega1, self.bend):
+                        self.channel, self.order, self.omega1, self.bend, self.velocity):
                 arr[v] = arr[last]
             self.B_t[:, v] = self.B_t[:, last]
             moved = last

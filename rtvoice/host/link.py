@@ -45,6 +45,7 @@ class Snapshot:
     gain_reduction_db: float = 0.0
     midi_events: int = 0  # running count of MIDI events handled
     note: int = -1  # MIDI note of the loudest voice, -1 for none
+    velocity: int = 0  # its note-on velocity, 0 for none
     f0_hz: float = 0.0
     mode_levels_db: np.ndarray = field(default_factory=lambda: np.zeros(0))
     mode_freqs_hz: np.ndarray = field(default_factory=lambda: np.zeros(0))
@@ -267,7 +268,8 @@ class EngineLink:
             voices=int(fields["voices"]), load_median=fields["load_median"], load_p99=fields["load_p99"],
             xruns=int(fields["xruns"]), peak_dbfs=fields["peak_dbfs"],
             gain_reduction_db=fields["gain_reduction_db"], midi_events=int(fields["midi_events"]),
-            note=int(fields["note"]), f0_hz=fields["f0_hz"], mode_levels_db=levels[:n],
+            note=int(fields["note"]), velocity=int(fields["velocity"]), f0_hz=fields["f0_hz"],
+            mode_levels_db=levels[:n],
             mode_freqs_hz=freqs[:n], spectrum_db=spec, spectrum_bin_hz=fields["spectrum_bin_hz"],
             audio_port=self._audio_port, midi_ports=list(self._midi_ports), engine_alive=alive,
         )

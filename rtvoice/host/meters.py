@@ -64,7 +64,7 @@ class VoiceStage:
 
     def __init__(self) -> None:
         self._halves = [{"levels": np.zeros(MAX_MODES), "freqs": np.zeros(MAX_MODES), "n": 0, "note": -1,
-                         "voices": 0} for _ in range(2)]
+                         "velocity": 0, "voices": 0} for _ in range(2)]
         self._ready = 0
         self._work = self._mag = self._bound = None
 
@@ -74,7 +74,7 @@ class VoiceStage:
         n = pool.n_active
         half = self._halves[1 - self._ready]
         if n == 0:
-            half["n"], half["note"], half["voices"] = 0, -1, 0
+            half["n"], half["note"], half["voices"], half["velocity"] = 0, -1, 0, 0
         else:
             if self._work is None or self._work.shape != pool.s.shape:  # only after a pool rebuild
                 self._work = np.empty(pool.s.shape, complex)
@@ -88,7 +88,7 @@ class VoiceStage:
             gain = OUTPUT_SCALE * 10 ** (engine.settings.get("output.gain_db") / 20) * host_gain
             np.multiply(self._mag[v, :m], gain, out=half["levels"][:m])
             np.multiply(pool.omega[v, :m], 1 / (2 * np.pi), out=half["freqs"][:m])
-            half["n"], half["note"] = m, int(pool.note[v])
+            half["n"], half["note"], half["velocity"] = m, int(pool.note[v]), int(pool.velocity[v])
             half["voices"] = int(np.count_nonzero(pool.state[:n] != FADING))
         self._ready = 1 - self._ready
 
@@ -122,6 +122,7 @@ class Publisher:
             board.put("peak_dbfs", 20 * math.log10(peak) if peak > FLOOR else SILENT_DB)
             board.put("voices", stage["voices"])
             board.put("note", stage["note"])
+            board.put("velocity", stage["velocity"])
             board.put("f0_hz", float(stage["freqs"][0]) if n else 0.0)
             board.put("n_modes", min(n_modes, MAX_MODES))
             board.put("spectrum_bin_hz", self.rate / SPECTRUM_FRAMES)

@@ -214,8 +214,7 @@ class RtvoiceApp(PresetActions, App[int]):
             f0 = snap.f0_hz / math.sqrt(1.0 + self.session.settings.get("string.inharmonicity"))
         if self.view == "harmonics":
             bars = self.bars
-            # The prediction needs the note's velocity; the snapshot does not carry it (yet), so a
-            # note from a MIDI device is predicted at the computer keyboard's velocity.
+            # The prediction is for the loudest voice's own velocity (the keyboard's before any note).
             velocity = int(getattr(snap, "velocity", 0) or self.player.velocity)
             n = max(PREDICTED_MIN, bars.harmonics_shown())
             predicted = self._predicted_for(note, f0, n, velocity)
