@@ -15,24 +15,12 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from test_ui_helpers import fresh, run, screen_text, start_link, user_home, wait_for
+from test_ui_helpers import fresh, home, link, run, screen_text, wait_for  # noqa: F401 - home and link are shared fixtures
 
 from rtvoice.physics.pickup import aperture_weights
 from rtvoice.ui.app import RtvoiceApp
 from rtvoice.ui.prediction import FLOOR_DB
 from rtvoice.ui.widgets.bars import AXIS, COLUMNS_PER_HARMONIC, NULL_MARK
-
-
-@pytest.fixture(scope="module")
-def link():
-    lk = start_link()
-    yield lk
-    lk.close()
-
-
-@pytest.fixture(autouse=True)
-def home(tmp_path, monkeypatch):
-    return user_home(tmp_path, monkeypatch)
 
 
 def published_pickup_weight(k: np.ndarray, x: float, w: float) -> np.ndarray:

@@ -11,6 +11,8 @@ import asyncio
 import time
 from collections.abc import Callable
 
+import pytest
+
 from rtvoice.engine.controls import default_entries
 from rtvoice.engine.settings import Settings
 from rtvoice.host.link import EngineLink
@@ -57,6 +59,20 @@ def user_home(tmp_path, monkeypatch):
 
 def run(coro):
     return asyncio.run(coro)
+
+
+# Fixtures shared by the UI test modules, which import them by name: each module gets its own
+# engine link (module scope) and every test its own user folder.
+@pytest.fixture(scope="module")
+def link():
+    lk = start_link()
+    yield lk
+    lk.close()
+
+
+@pytest.fixture(autouse=True)
+def home(tmp_path, monkeypatch):
+    return user_home(tmp_path, monkeypatch)
 
 
 __all__ = ["fresh", "run", "screen_text", "start_link", "user_home", "wait_for"]

@@ -8,26 +8,13 @@ import signal
 import threading
 import tomllib
 
-import pytest
-from test_ui_helpers import fresh, run, screen_text, start_link, user_home, wait_for
+from test_ui_helpers import fresh, home, link, run, screen_text, start_link, wait_for  # noqa: F401 - home and link are shared fixtures
 
 from rtvoice.ui.app import RtvoiceApp
 from rtvoice.ui.keyboard import ROWS
 from rtvoice.ui.priority import lower_ui_thread_priority, normal_priority_spawner
 from rtvoice.ui.screens.dialogs import PromptScreen
 from rtvoice.ui.screens.notes import HelpScreen, SafetyScreen
-
-
-@pytest.fixture(scope="module")
-def link():
-    lk = start_link()
-    yield lk
-    lk.close()
-
-
-@pytest.fixture(autouse=True)
-def home(tmp_path, monkeypatch):
-    return user_home(tmp_path, monkeypatch)
 
 
 def test_keys_pluck_notes_octave_keys_shift_them_and_space_mutes_everything(link):

@@ -8,7 +8,7 @@ import tomllib
 from pathlib import Path
 
 import pytest
-from test_ui_helpers import fresh, run, screen_text, start_link, user_home, wait_for
+from test_ui_helpers import fresh, home, link, run, screen_text, wait_for  # noqa: F401 - home and link are shared fixtures
 
 from rtvoice.engine import presets
 from rtvoice.engine.settings import Settings
@@ -16,18 +16,6 @@ from rtvoice.ui.app import RtvoiceApp
 from rtvoice.ui.screens.dialogs import AskScreen, PromptScreen
 from rtvoice.ui.screens.presets import PresetScreen
 from rtvoice.ui.widgets.status import MODIFIED_MARK
-
-
-@pytest.fixture(scope="module")
-def link():
-    lk = start_link()
-    yield lk
-    lk.close()
-
-
-@pytest.fixture(autouse=True)
-def home(tmp_path, monkeypatch):
-    return user_home(tmp_path, monkeypatch)
 
 
 async def open_and_load(pilot, app, filter_text: str) -> None:

@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from test_ui_helpers import fresh, start_link, user_home
+from test_ui_helpers import fresh, home, link  # noqa: F401 - home and link are shared fixtures
 
 from rtvoice.engine import presets
 from rtvoice.engine.renderer import Engine
@@ -19,18 +19,6 @@ from rtvoice.host.link import Snapshot
 from rtvoice.ui.app import RtvoiceApp
 
 BLOCKS = 20  # about 0.1 s of E2 at 48 kHz, 256-frame blocks
-
-
-@pytest.fixture(scope="module")
-def link():
-    lk = start_link()
-    yield lk
-    lk.close()
-
-
-@pytest.fixture(autouse=True)
-def home(tmp_path, monkeypatch):
-    return user_home(tmp_path, monkeypatch)
 
 
 def fixed_snapshot() -> Snapshot:

@@ -4,23 +4,11 @@ import asyncio
 
 import numpy as np
 import pytest
-from test_ui_helpers import fresh, start_link, user_home, wait_for
+from test_ui_helpers import fresh, home, link, wait_for  # noqa: F401 - home and link are shared fixtures
 
 from rtvoice.survey import survey_grid
 from rtvoice.ui.app import RtvoiceApp
 from rtvoice.ui.screens.survey import SHADES, SurveyScreen, map_grids
-
-
-@pytest.fixture(scope="module")
-def link():
-    lk = start_link()
-    yield lk
-    lk.close()
-
-
-@pytest.fixture(autouse=True)
-def home(tmp_path, monkeypatch):
-    return user_home(tmp_path, monkeypatch)
 
 
 def test_map_cursor_moves_the_live_pickup_and_pluck(link):
