@@ -14,12 +14,12 @@ from __future__ import annotations
 import asyncio
 import contextlib
 import importlib.util
-import os
 import shutil
 import subprocess
 import time
 
 from rtvoice.bench.scenes import NOTES_PER_CHANNEL, feature_settings
+from rtvoice.procutil import scoped_environ, stop_process
 
 SERVER_NAME = "rtvbench"
 PERIOD_FRAMES = 128
@@ -39,12 +39,7 @@ def jack_server(name: str = SERVER_NAME, period: int = PERIOD_FRAMES):
             raise RuntimeError("the JACK dummy server did not start")
         yield name
     finally:
-        proc.terminate()
-        try:
-            proc.wait(5)
-        except subprocess.TimeoutExpired:
-            proc.kill()
-            proc.wait()
+        stop_process(proc)
 
 
 def _chord():
@@ -120,20 +115,11 @@ def callback_distribution(seconds: float) -> dict:
         return {"available": False, "reason": "rtvoice.host is not built yet"}
     if not (shutil.which("jackd") and shutil.which("jack_wait")):
         return {"available": False, "reason": "jackd / jack_wait not installed (Debian: jackd2)"}
-    saved = {k: os.environ.get(k) for k in ("JACK_DEFAULT_SERVER", "JACK_NO_START_SERVER")}
     result: dict = {"available": True, "voices": VOICES, "modes": MODES, "period_frames": PERIOD_FRAMES}
     try:
-        with jack_server() as name:
-            os.environ["JACK_DEFAULT_SERVER"] = name
-            os.environ["JACK_NO_START_SERVER"] = "1"
+        with jack_server() as name, scoped_environ({"JACK_DEFAULT_SERVER": name, "JACK_NO_START_SERVER": "1"}):
             result["without_ui"] = _run_once(seconds, with_ui=False)
             result["with_ui"] = _run_once(seconds, with_ui=True)
     except Exception as err:  # noqa: BLE001 - a host under construction must not stop the benchmarks
         return {"available": False, "reason": f"{type(err).__name__}: {err}"}
-    finally:
-        for k, v in saved.items():
-            if v is None:
-                os.environ.pop(k, None)
-            else:
-                os.environ[k] = v
     return result

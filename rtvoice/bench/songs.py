@@ -17,6 +17,7 @@ from rtvoice.engine.renderer import Engine
 from rtvoice.engine.settings import Settings
 from rtvoice.offline.midifile import read_midi_events
 from rtvoice.offline.render import render_events
+from rtvoice.procutil import stop_process
 
 DEMO_SONG = Path(__file__).resolve().parents[2] / "examples" / "demo.mid"
 TAIL_CAP_S = 4.0
@@ -180,12 +181,7 @@ def startup_time(runs: int = 3, timeout_s: float = 30.0) -> dict:
                 if time.perf_counter() - t0 > timeout_s:
                     break
         finally:
-            proc.terminate()
-            try:
-                proc.wait(5)
-            except subprocess.TimeoutExpired:
-                proc.kill()
-                proc.wait()
+            stop_process(proc)
         if seen is None:
             return {"available": False, "reason": "rtvoice play never reported its audio running: "
                     + " / ".join(tail)[-300:]}

@@ -22,6 +22,7 @@ import numpy as np
 from rtvoice.engine import midi
 from rtvoice.engine.renderer import Engine
 from rtvoice.engine.settings import Settings
+from rtvoice.procutil import scoped_environ
 from rtvoice.survey.descriptors import describe, window_factor
 from rtvoice.survey.model import EngineModel
 from rtvoice.survey.result import SurveyResult
@@ -184,16 +185,8 @@ def reference_settings(result: SurveyResult) -> Settings:
 @contextlib.contextmanager
 def _single_blas_thread() -> Iterator[None]:
     """Spawned workers start with one BLAS thread each, so renders do not fight over the cores."""
-    saved = {k: os.environ.get(k) for k in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS")}
-    os.environ.update({k: "1" for k in saved})
-    try:
+    with scoped_environ(dict.fromkeys(("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"), "1")):
         yield
-    finally:
-        for k, v in saved.items():
-            if v is None:
-                os.environ.pop(k, None)
-            else:
-                os.environ[k] = v
 
 
 def _measure_task(args: tuple) -> tuple[np.ndarray, float]:
