@@ -30,7 +30,7 @@ from rtvoice.engine.voices import FADING, FREE, HELD, RELEASED, SOUNDING, VoiceP
 from rtvoice.physics.damping import LN_1000, decay_rate_per_s, loss_coefficients, release_rate_per_s
 from rtvoice.physics.electronics import lowpass_biquad, rlc_resonance
 from rtvoice.physics.modes import NYQUIST_MARGIN
-from rtvoice.physics.pickup import spatial_sums
+from rtvoice.physics.pickup import spatial_sums, velocity_factor
 from rtvoice.physics.tuning import midi_note_to_hz
 
 OUTPUT_SCALE = 0.25  # one full-velocity note peaks near -12 dBFS at 0 dB gain
@@ -349,7 +349,7 @@ class Engine:
         pool.bend[v] = bend
         pool.omega[v] = pool.omega_base[v] * factor
         pool.omega1[v] = pool.omega_base[v, 0] * factor
-        pool.deriv[v] = (-pool.sigma_hold[v] + 1j * pool.omega[v]) / pool.omega1[v]
+        pool.deriv[v] = velocity_factor(pool.sigma_hold[v], pool.omega[v], pool.omega1[v])
         pool.audible[v] = pool.omega[v] < self._omega_limit
 
     def _note_off(self, at: int, ch: int, note: int, ramping: bool) -> None:

@@ -60,6 +60,17 @@ def spatial_sums(k: np.ndarray, pickups: Iterable[Mapping]) -> tuple[np.ndarray,
     return disp, vel
 
 
+def velocity_factor(sigma_per_s, omega_rad_s, omega_ref_rad_s) -> np.ndarray:
+    """(-sigma + i w) / w_ref: what a velocity pickup multiplies a mode's complex amplitude by.
+
+    A mode with complex amplitude c moves as Re(c e^{(-sigma + i w) t}), so its velocity
+    is Re(c (-sigma + i w) e^{...}); dividing by ``omega_ref_rad_s`` (the note's
+    fundamental) keeps levels comparable across the keyboard while the ratios between
+    harmonics stay the physical ones.
+    """
+    return (-np.asarray(sigma_per_s) + 1j * np.asarray(omega_rad_s)) / omega_ref_rad_s
+
+
 def pickup_weights(
     k: np.ndarray,
     pickups: Iterable[Mapping],
@@ -67,14 +78,8 @@ def pickup_weights(
     omega_rad_s: np.ndarray,
     omega_ref_rad_s: float,
 ) -> np.ndarray:
-    """Complex weight of each mode's complex amplitude in the summed pickup signal.
-
-    A mode with complex amplitude c moves as Re(c e^{(-sigma + i w) t}); its velocity
-    is Re(c (-sigma + i w) e^{...}). A velocity pickup therefore weights it by
-    (-sigma + i w) / w_ref, where ``omega_ref_rad_s`` (the note's fundamental) keeps
-    levels comparable across the keyboard while the ratios between harmonics stay
-    the physical ones.
-    """
+    """Complex weight of each mode's complex amplitude in the summed pickup signal:
+    displacement pickups by their spatial weight, velocity pickups by it times
+    :func:`velocity_factor`."""
     disp, vel = spatial_sums(k, pickups)
-    deriv = (-np.asarray(sigma_per_s) + 1j * np.asarray(omega_rad_s)) / omega_ref_rad_s
-    return disp + vel * deriv
+    return disp + vel * velocity_factor(sigma_per_s, omega_rad_s, omega_ref_rad_s)
