@@ -24,9 +24,8 @@ import numpy as np
 from rtvoice.engine import midi
 from rtvoice.engine.notes import harmonic_stretch, initial_amplitudes
 from rtvoice.engine.output import CEILING, BlockFilter, Limiter, dc_blocker
-from rtvoice.engine.schema import PICKUP_FIELDS
 from rtvoice.engine.settings import Settings
-from rtvoice.engine.voices import FADING, FREE, HELD, RELEASED, SOUNDING, VoicePool
+from rtvoice.engine.voices import FADING, HELD, RELEASED, SOUNDING, VoicePool
 from rtvoice.physics.damping import LN_1000, decay_rate_per_s, loss_coefficients, release_rate_per_s
 from rtvoice.physics.electronics import lowpass_biquad, rlc_resonance
 from rtvoice.physics.modes import NYQUIST_MARGIN
@@ -521,13 +520,5 @@ class Engine:
         """|g s| of each mode of slot v in output units (before electronics and gain)."""
         return np.abs(self.pool.g[v] * self.pool.s[v]) * OUTPUT_SCALE
 
-    def sounding(self) -> int:
-        pool = self.pool
-        return int(np.count_nonzero(pool.state[: pool.n_active] != FADING))
 
-    @property
-    def voice_states(self) -> np.ndarray:
-        return self.pool.state[: self.pool.n_active]
-
-
-__all__ = ["CEILING", "Engine", "EngineStats", "Event", "FREE", "PICKUP_FIELDS"]
+__all__ = ["CEILING", "Engine", "EngineStats", "Event"]
