@@ -298,3 +298,34 @@ def test_output_never_exceeds_the_ceiling_when_slammed():
         peak = max(peak, float(np.max(np.abs(y))))
     assert peak <= CEILING
     assert peak > 0.8  # the limiter was really working at the ceiling
+
+
+def test_partial_bent_past_the_cut_off_falls_silent_and_returns_when_the_bend_does():
+    # Partials stop at 0.45 fs (our cut-off below Nyquist, common practice against aliasing). A bend
+    # changes a mode's frequency, not its vibration, so a partial pushed past the cut-off is silent
+    # while there and comes back on return with the level its decay predicts (Chaigne & Askenfelt
+    # 1994 loss law, as in damping()).
+    s = clean(string__inharmonicity=0.0, pickup__0__sensing="displacement", string__t60_high=7.5)
+    f0, k_top = 3520.0, 6  # note 105; 6 x 3520 = 21120 Hz, just under 0.45 x 48000 = 21600 Hz
+    centre = (0x00, 0x40)
+    events = [(0.0, 0x90, 105, 120), (0.3, 0xE0, 0x7F, 0x7F), (0.6, 0xE0, *centre), (1.0, 0x80, 105, 0)]
+    y = render_events(events, s, FS, 256, tail_cap_s=0.0)
+    freqs = f0 * np.arange(1, k_top + 1)
+    sig = damping(freqs, 8.0, 7.5)  # nearly flat, so the top partial lasts the whole test
+
+    def amplitudes_at(t0):
+        start = int(t0 * FS)
+        return fit_damped_modes(y[start:start + 9600], FS, freqs, sig)
+
+    before, after = amplitudes_at(0.05), amplitudes_at(0.65)
+    assert db(before[-1]) > db(before[0]) - 40  # the top partial is clearly there before the bend
+    expected = np.abs(before) * np.exp(-sig * 0.6)
+    present = db(expected) > -150  # partial 5 sits on the pluck's null at 0.2 (Fletcher & Rossing 1998)
+    assert present[-1]
+    np.testing.assert_allclose(db(after[present]), db(expected[present]), atol=0.3)
+    # While bent up two semitones (default range) the top partial would sit near 23.7 kHz: silent.
+    bent = y[int(0.35 * FS):int(0.35 * FS) + 9600] * np.hanning(9600)
+    spec = np.abs(np.fft.rfft(bent))
+    hz = np.fft.rfftfreq(9600, 1 / FS)
+    top = k_top * f0 * 2 ** (2 * (8191 / 8192) / 12)
+    assert db(spec[np.abs(hz - top) < 200].max()) < db(spec.max()) - 100

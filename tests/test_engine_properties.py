@@ -75,3 +75,23 @@ def test_loud_chords_stay_under_the_ceiling(gain, notes):
     for i in range(30):
         y = engine.render(events if i == 0 else ())
         assert np.max(np.abs(y)) <= CEILING and np.all(np.isfinite(y))
+
+
+def pickup_lists():
+    one = st.fixed_dictionaries({f: param_value(p) for f, p in PICKUP_FIELDS.items()})
+    return st.lists(st.lists(one, min_size=1, max_size=4), min_size=1, max_size=6)
+
+
+@settings(max_examples=60, deadline=None)
+@given(pickup_lists(), st.integers(1, 200))
+def test_cached_pickup_sums_equal_the_direct_formula_through_any_sequence_of_changes(sequence, modes):
+    # The engine's cached sums must equal rtvoice.physics.pickup.spatial_sums, which writes out
+    # sin(k pi x) sinc(k pi w / 2) per pickup (Paiva, Pakarinen & Valimaki 2012), after any changes.
+    from rtvoice.engine.pickup_sums import PickupSums
+    from rtvoice.physics.pickup import spatial_sums
+
+    sums, k = PickupSums(modes), np.arange(1, modes + 1, dtype=float)
+    for pickups in sequence:
+        got = sums.update(pickups)
+        for a, b in zip(got, spatial_sums(k, pickups), strict=True):
+            np.testing.assert_allclose(a, b, rtol=0, atol=1e-12)

@@ -21,21 +21,72 @@ class BlockFilter:
     """A linear filter (b, a) applied block by block with carried state.
 
     New coefficients keep the state, so a change of resonance while notes ring
-    does not restart the filter.
+    does not restart the filter. Given ``block_frames`` (up to
+    :attr:`MATRIX_MAX_FRAMES`), blocks of that size run as one matrix product:
+    the block's output and next state are linear in its input and state,
+    [y; z'] = M [x; z], with M built once from ``scipy.signal.lfilter`` itself,
+    so the state z is lfilter's own ``zi`` and the two paths can take turns.
+    One small product costs about half of lfilter's per-call set-up at these
+    sizes; at 256 frames lfilter is as fast (measured). Building M costs about
+    0.2 ms at 128 frames, so after new coefficients the filter runs on lfilter
+    and builds M only once they have held for :attr:`REBUILD_AFTER_BLOCKS` blocks
+    (a controller sweeping the resonance never pays for it).
     """
 
-    def __init__(self, b: np.ndarray, a: np.ndarray):
+    MATRIX_MAX_FRAMES = 128
+    REBUILD_AFTER_BLOCKS = 8
+
+    def __init__(self, b: np.ndarray, a: np.ndarray, block_frames: int | None = None):
         self.b, self.a = np.asarray(b, float), np.asarray(a, float)
         self.zi = np.zeros(max(len(self.a), len(self.b)) - 1)
+        use_matrix = block_frames is not None and 0 < block_frames <= self.MATRIX_MAX_FRAMES
+        self._block = int(block_frames) if use_matrix else 0
+        self._matrix: np.ndarray | None = None
+        self._bufs: tuple[np.ndarray, np.ndarray] | None = None
+        self._held_blocks = 0  # blocks since the coefficients last changed
+        if self._block:
+            self._build_matrix()
 
     def set_coefficients(self, b: np.ndarray, a: np.ndarray) -> None:
         b, a = np.asarray(b, float), np.asarray(a, float)
         if len(b) != len(self.b) or len(a) != len(self.a):
             self.zi = np.zeros(max(len(a), len(b)) - 1)
+        else:
+            self.zi = self.zi.copy()  # detach from the matrix path's buffers before they are rebuilt
         self.b, self.a = b, a
+        self._matrix = None
+        self._held_blocks = 0
 
-    def process(self, x: np.ndarray) -> None:
-        x[:], self.zi = scipy.signal.lfilter(self.b, self.a, x, zi=self.zi)
+    def _build_matrix(self) -> None:
+        n, order = self._block, self.zi.size
+        y_x, z_x = scipy.signal.lfilter(self.b, self.a, np.eye(n), axis=0, zi=np.zeros((order, n)))
+        y_z, z_z = scipy.signal.lfilter(self.b, self.a, np.zeros((n, order)), axis=0, zi=np.eye(order))
+        self._matrix = np.block([[y_x, y_z], [z_x, z_z]])
+        bufs = (np.zeros(n + order), np.zeros(n + order))
+        bufs[0][n:] = self.zi
+        self._bufs = bufs
+        self.zi = bufs[0][n:]
+
+    def process(self, x: np.ndarray, gain: float = 1.0) -> None:
+        """Filter ``x`` in place and scale the result by ``gain`` (free on the matrix path)."""
+        n = x.size
+        if n == self._block and self._matrix is None:
+            self._held_blocks += 1
+            if self._held_blocks > self.REBUILD_AFTER_BLOCKS:
+                self._build_matrix()
+        if n == self._block and self._matrix is not None:
+            x_in, x_out = self._bufs
+            x_in[:n] = x
+            np.matmul(self._matrix, x_in, out=x_out)
+            np.multiply(x_out[:n], gain, out=x)
+            self._bufs = (x_out, x_in)
+            self.zi = x_out[n:]
+        else:
+            zi = self.zi
+            x[:], zf = scipy.signal.lfilter(self.b, self.a, x, zi=zi)
+            zi[:] = zf  # in place: on the matrix path zi is a view of its state buffer
+            if gain != 1.0:
+                x *= gain
         if not all(map(math.isfinite, self.zi)):  # a few values: cheaper in Python than a ufunc
             self.zi[:] = 0.0
 
@@ -82,11 +133,20 @@ class Limiter:
         self.peak = 0.0
 
     def process(self, x: np.ndarray) -> None:
+        """Limit ``x`` in place."""
+        self.apply(x, *self.measure(x))
+
+    def measure(self, x: np.ndarray) -> tuple[float, int]:
+        """(peak magnitude, its index) of ``x``; the peak is NaN or inf when ``x`` holds one."""
+        work = self._work[: x.size]
+        np.abs(x, out=work)
+        peak_at = int(np.argmax(work))  # argmax stops at the first NaN
+        return float(work[peak_at]), peak_at
+
+    def apply(self, x: np.ndarray, peak: float, peak_at: int) -> None:
+        """Limit ``x`` in place, given :meth:`measure`'s result for it."""
         n = x.size
         ramp, work = self._ramp[:n], self._work[:n]
-        np.abs(x, out=work)
-        peak_at = int(np.argmax(work))
-        peak = float(work[peak_at])
         g0 = self.gain
         if g0 == 1.0 and peak <= CEILING:  # the usual case: nothing to do
             self.gain_reduction_db = 0.0

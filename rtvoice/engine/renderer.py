@@ -24,12 +24,13 @@ import numpy as np
 from rtvoice.engine import midi
 from rtvoice.engine.notes import harmonic_stretch, initial_amplitudes
 from rtvoice.engine.output import CEILING, BlockFilter, Limiter, dc_blocker
+from rtvoice.engine.pickup_sums import PickupSums
 from rtvoice.engine.settings import Settings
 from rtvoice.engine.voices import FADING, HELD, RELEASED, SOUNDING, VoicePool
 from rtvoice.physics.damping import LN_1000, decay_rate_per_s, loss_coefficients, release_rate_per_s
 from rtvoice.physics.electronics import lowpass_biquad, rlc_resonance
 from rtvoice.physics.modes import NYQUIST_MARGIN
-from rtvoice.physics.pickup import spatial_sums, velocity_factor
+from rtvoice.physics.pickup import velocity_factor
 from rtvoice.physics.tuning import midi_note_to_hz
 
 OUTPUT_SCALE = 0.25  # one full-velocity note peaks near -12 dBFS at 0 dB gain
@@ -88,6 +89,8 @@ class Engine:
         self._post: BlockFilter | None = None  # coil filter and DC blocker in one
         self._gain = self._gain_target = 10 ** (self.settings.get("output.gain_db") / 20)
         self._pickups_now = [dict(p) for p in self.settings.pickups]
+        self._pickups_settled = True  # now == target: the smoothing step has nothing to do
+        self._exact_used = False  # some voice wrote into self._exact this block
         self._bend_dirty = False
         self._pending_rebuild: Settings | None = None
         self._build_pool()
@@ -103,7 +106,6 @@ class Engine:
         self.pool = VoicePool(voices + max(2, voices // 4), modes, self.block, self.fs)
         slots, modes = self.pool.slots, self.pool.modes
         n1, n2 = self.pool.n1, self.pool.n2
-        self._k = np.arange(1, modes + 1, dtype=float)
         self._g_next = np.zeros((slots, modes), complex)
         self._d64 = np.zeros((2, slots * modes), np.complex64)  # g s now, and with the ramp's target g
         self._ct = np.zeros((2 * n2, slots * modes), np.complex64)  # C^T: rows B[j] * d, contiguous
@@ -114,7 +116,8 @@ class Engine:
         self._upto = np.zeros(slots, np.int64)
         self._touched_list: list[int] = []
         self._stash = np.zeros((slots, modes), complex)
-        self._omega_limit = 2 * np.pi * NYQUIST_MARGIN * self.fs
+        self._views: dict[int, _BulkViews] = {}  # by number of active voices
+        self._pickup_sums = PickupSums(modes)
 
     def _prepare_notes(self) -> None:
         s = self.settings
@@ -139,12 +142,12 @@ class Engine:
         resonance while notes ring does not restart the filter.
         """
         f_r, q = self.resonance()
-        b, a = self._dc.b, self._dc.a
+        b, a = self._dc.b * OUTPUT_SCALE, self._dc.a  # the output scale rides on the filter
         if f_r > 0:
             coil_b, coil_a = lowpass_biquad(f_r, q, self.fs)
             b, a = np.convolve(coil_b, b), np.convolve(coil_a, a)
         if self._post is None:
-            self._post = BlockFilter(b, a)
+            self._post = BlockFilter(b, a, self.block)
         else:
             self._post.set_coefficients(b, a)
 
@@ -157,15 +160,17 @@ class Engine:
         return s.get("electronics.resonance_hz"), s.get("electronics.q")
 
     def _prepare_pickups(self) -> None:
-        self._disp, self._vel = spatial_sums(self._k, self._pickups_now)
+        self._disp, self._vel = self._pickup_sums.update(self._pickups_now)
 
     def _weights(self, lo: int, hi: int, out: np.ndarray) -> None:
-        """Pickup weights of slots lo..hi-1 into ``out`` (modes above the limit weigh 0)."""
-        pool = self.pool
+        """Pickup weights of slots lo..hi-1 into ``out``.
+
+        Modes above the Nyquist margin need no mask here: their table rows are zero
+        (see :meth:`VoicePool.update_tables`).
+        """
         w = out[lo:hi]
-        np.multiply(pool.deriv[lo:hi], self._vel, out=w)
+        np.multiply(self.pool.deriv[lo:hi], self._vel, out=w)
         w += self._disp
-        w *= pool.audible[lo:hi]
 
     # -- settings -----------------------------------------------------------------
     def apply_settings(self, settings: Settings) -> None:
@@ -178,6 +183,7 @@ class Engine:
         changed = settings.differences(old)
         if not changed:
             return
+        self._pickups_settled = False
         if any(n in ("voices", "string.modes") for n in changed):
             self._pending_rebuild = settings
             self._fade_all(0)
@@ -195,7 +201,9 @@ class Engine:
     def render(self, events: Iterable[Event] = ()) -> np.ndarray:
         """Render one block with ``events`` placed on their sample offsets."""
         pool, n_blk = self.pool, self.block
-        self._exact[:] = 0.0
+        if self._exact_used:
+            self._exact[:] = 0.0
+            self._exact_used = False
         ramping = self._step_pickups()
         for offset, status, d1, d2 in events:
             self._handle(min(max(int(offset), 0), n_blk - 1), status, d1, d2, ramping)
@@ -217,31 +225,31 @@ class Engine:
             out[:] = 0.0
             self._clear_touched()
             return
-        modes, n1, n2 = pool.modes, pool.n1, pool.n2
-        m = n * modes
+        views = self._views.get(n)
+        if views is None:
+            views = self._views[n] = _BulkViews(self, n)
+        modes = pool.modes
         sets = 2 if ramping else 1
-        ct = self._ct
-        for i, g in enumerate((pool.g, self._g_next)[:sets]):
-            d = self._d64[i, :m]
-            np.multiply(g[:n], pool.s[:n], out=d.reshape(n, modes), casting="same_kind")
+        for i in range(sets):
+            d = views.d[i]
+            np.multiply(views.g[i], views.s, out=views.d_by_voice[i], casting="same_kind")
             for v in self._touched_list:
                 d[v * modes:(v + 1) * modes] = 0.0
-            np.multiply(self._b_t[:n2, :m], d, out=ct[i * n2:(i + 1) * n2, :m])
+            np.multiply(views.b_t, d, out=views.ct[i])
         # Re(Y) = [Re C, Im C] . [Re A; -Im A]: one real product over 2 m rows.
-        y = self._y[: sets * n2]
-        np.matmul(ct[: sets * n2, :m].view(np.float32), self._a_rows[: 2 * m], out=y)
-        flat = y.reshape(-1)
+        np.matmul(views.lhs[sets - 1], views.a_rows, out=views.y[sets - 1])
         if ramping:
-            old, new = flat[: n1 * n2][: self.block], flat[n1 * n2:][: self.block]
+            old, new = views.samples
             np.subtract(new, old, out=out)
             out *= self._ramp
             out += old
         else:
-            out[:] = flat[: self.block]
-        out += self._exact
+            out[:] = views.samples[0]
+        if self._exact_used:
+            out += self._exact
         for v in self._touched_list:
             self._stash[v] = pool.s[v]
-        pool.s[:n] *= pool.p_block[:n]
+        views.s *= views.p_block
         for v in self._touched_list:
             pool.s[v] = self._stash[v]
         self._clear_touched()
@@ -267,6 +275,7 @@ class Engine:
             return
         z0 = pool.segment(v, pool.g[v] * pool.s[v], count)
         seg = self._exact[start:stop]
+        self._exact_used = True
         if ramping:
             z1 = pool.segment(v, self._g_next[v] * pool.s[v], count)
             r = self._ramp[start:stop]
@@ -349,7 +358,7 @@ class Engine:
         pool.omega[v] = pool.omega_base[v] * factor
         pool.omega1[v] = pool.omega_base[v, 0] * factor
         pool.deriv[v] = velocity_factor(pool.sigma_hold[v], pool.omega[v], pool.omega1[v])
-        pool.audible[v] = pool.omega[v] < self._omega_limit
+        pool.audible[v] = pool.omega[v] < pool.omega_limit
 
     def _note_off(self, at: int, ch: int, note: int, ramping: bool) -> None:
         pool = self.pool
@@ -436,6 +445,8 @@ class Engine:
     # -- live parameters ----------------------------------------------------------
     def _step_pickups(self) -> bool:
         """Move the pickups one smoothing step towards their targets; True when they moved."""
+        if self._pickups_settled:
+            return False
         target = self.settings.pickups
         now = self._pickups_now
         moved = False
@@ -453,6 +464,7 @@ class Engine:
                         a[f] = b[f] if abs(diff - step) < 1e-7 * max(1.0, abs(b[f])) else a[f] + step
                         moved = True
         if not moved:
+            self._pickups_settled = True
             return False
         self._prepare_pickups()
         self._weights(0, self.pool.n_active, self._g_next)
@@ -460,28 +472,32 @@ class Engine:
 
     def _finish(self) -> np.ndarray:
         out = self._out
-        out *= OUTPUT_SCALE
-        self._post.process(out)  # linear and time-invariant, so it may come before the gain ramp
         g0 = self._gain
         g1 = g0 + (self._gain_target - g0) * self._alpha
         if abs(g1 - self._gain_target) < 1e-6 * self._gain_target:
             g1 = self._gain_target
+        # Output scale, electronics and DC blocker are linear and time-invariant, so they may
+        # come before the gain ramp; a steady gain rides on the filter at no cost.
         if g0 == g1:
-            out *= g1
+            self._post.process(out, g1)
         else:
+            self._post.process(out)
             np.multiply(self._ramp, g1 - g0, out=self._gain_ramp)
             self._gain_ramp += g0
             out *= self._gain_ramp
         self._gain = g1
-        if not math.isfinite(out.sum()):  # NaN and inf survive a sum
+        limiter = self.limiter
+        peak, peak_at = limiter.measure(out)
+        if not math.isfinite(peak):  # a NaN or inf sample somewhere in the block
             self._drop_bad_voices()
             out[:] = 0.0
             self._post.reset()
-        self.limiter.process(out)
+            peak, peak_at = 0.0, 0
+        limiter.apply(out, peak, peak_at)
         st = self.stats
-        st.peak = self.limiter.peak
-        st.gain_reduction_db = self.limiter.gain_reduction_db
-        st.clipped = self.limiter.clipped
+        st.peak = limiter.peak
+        st.gain_reduction_db = limiter.gain_reduction_db
+        st.clipped = limiter.clipped
         st.blocks += 1
         return out
 
@@ -517,8 +533,29 @@ class Engine:
         return int(np.argmax(self.pool.bound()))
 
     def mode_levels(self, v: int) -> np.ndarray:
-        """|g s| of each mode of slot v in output units (before electronics and gain)."""
-        return np.abs(self.pool.g[v] * self.pool.s[v]) * OUTPUT_SCALE
+        """|g s| of each mode of slot v in output units (before electronics and gain); 0 above the Nyquist margin."""
+        pool = self.pool
+        return np.abs(pool.g[v] * pool.s[v]) * (OUTPUT_SCALE * pool.audible[v])
+
+
+class _BulkViews:
+    """The slices the block product uses for ``n`` active voices, made once (views cost time per block)."""
+
+    def __init__(self, engine: Engine, n: int):
+        pool = engine.pool
+        m, n2 = n * pool.modes, pool.n2
+        self.g = (pool.g[:n], engine._g_next[:n])
+        self.s, self.p_block = pool.s[:n], pool.p_block[:n]
+        self.d = tuple(engine._d64[i, :m] for i in range(2))
+        self.d_by_voice = tuple(d.reshape(n, pool.modes) for d in self.d)
+        self.b_t = engine._b_t[:n2, :m]
+        self.ct = tuple(engine._ct[i * n2:(i + 1) * n2, :m] for i in range(2))
+        self.lhs = tuple(engine._ct[: sets * n2, :m].view(np.float32) for sets in (1, 2))
+        self.a_rows = engine._a_rows[: 2 * m]
+        self.y = tuple(engine._y[: sets * n2] for sets in (1, 2))
+        flat = engine._y.reshape(-1)
+        half = pool.n1 * n2
+        self.samples = (flat[: engine.block], flat[half: half + engine.block])  # set 0 (g now), set 1 (target g)
 
 
 __all__ = ["CEILING", "Engine", "EngineStats", "Event"]

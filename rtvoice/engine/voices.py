@@ -18,6 +18,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from rtvoice.physics.modes import NYQUIST_MARGIN
+
 FREE, SOUNDING, RELEASED, HELD, FADING = 0, 1, 2, 3, 4
 
 
@@ -50,6 +52,7 @@ class VoicePool:
         self.block = block_frames
         self.fs = float(sample_rate_hz)
         self.n1, self.n2 = block_split(block_frames)
+        self.omega_limit = 2 * np.pi * NYQUIST_MARGIN * self.fs  # rad/s: modes at or above it are not heard
         shape = (slots, modes)
         self.s = np.zeros(shape, complex)
         self.g = np.zeros(shape, complex)
@@ -75,23 +78,24 @@ class VoicePool:
 
     # -- tables -----------------------------------------------------------------
     def update_tables(self, lo: int, hi: int) -> None:
-        """Rebuild the power tables of slots lo..hi-1 from their sigma and omega."""
+        """Rebuild the power tables of slots lo..hi-1 from their sigma and omega.
+
+        A mode at or above :attr:`omega_limit` (a bend can push one there) gets zero
+        rows in A, so no product hears it and the pickup weights need no mask; its
+        amplitude still advances (by ``p_block`` and :meth:`power`), so it returns
+        when the bend comes back.
+        """
         if hi <= lo:
             return
         logp = (-self.sigma[lo:hi] + 1j * self.omega[lo:hi]) / self.fs
         p = np.exp(logp)
         a = _running_powers(p, self.n1)
         b = _running_powers(a[..., -1] * p, self.n2 + 1)  # powers of p^N1
+        a[self.omega[lo:hi] >= self.omega_limit] = 0.0
         self.A_rows[lo:hi, :, 0, :] = a.real
         self.A_rows[lo:hi, :, 1, :] = -a.imag
         self.B_t[:, lo:hi, :] = np.moveaxis(b, -1, 0)
         self.p_block[lo:hi] = np.exp(logp * self.block)
-
-    def powers(self, v: int, count: int) -> np.ndarray:
-        """p^j for j = 0..count-1 of slot v, shape (modes, count); count <= N1 * N2."""
-        j = np.arange(count)
-        a, b = self._complex_tables(v)
-        return a[:, j % self.n1] * b[:, j // self.n1]
 
     def segment(self, v: int, d: np.ndarray, count: int) -> np.ndarray:
         """sum over modes m of d[m] p[m]^j for j = 0..count-1 (count <= N1 * N2), as complex samples.
@@ -104,9 +108,8 @@ class VoicePool:
         return ((b[:, :rows] * d[:, None]).T @ a).reshape(-1)[:count]
 
     def power(self, v: int, j: int) -> np.ndarray:
-        """p^j of slot v for 0 <= j <= N1 * N2."""
-        a, b = self._complex_tables(v)
-        return a[:, j % self.n1] * b[:, j // self.n1]
+        """p^j of slot v (every mode, heard or not)."""
+        return np.exp((-self.sigma[v] + 1j * self.omega[v]) * (j / self.fs))
 
     def _complex_tables(self, v: int) -> tuple[np.ndarray, np.ndarray]:
         """(A, B) of slot v as complex arrays of shape (modes, N1) and (modes, N2 + 1)."""

@@ -16,14 +16,24 @@ import numpy as np
 
 def aperture_weights(k: np.ndarray, position: float, width: float = 0.0) -> np.ndarray:
     """sin(k pi x) sinc(k pi w / 2): the spatial weight of mode k for one pickup."""
-    k = np.asarray(k, dtype=float)
-    spatial = np.sin(k * (np.pi * float(position)))
+    spatial = mode_shape(k, position)
     if width > 0:
-        # sin(u) / u written out: np.sinc makes several temporaries, and this runs every
-        # block while a pickup moves. u = 0 (k = 0) has the limit 1.
-        u = k * (np.pi * float(width) / 2.0)
-        spatial *= np.divide(np.sin(u), u, out=np.ones_like(u), where=u != 0)
+        spatial *= aperture_sinc(k, width)
     return spatial
+
+
+def mode_shape(k: np.ndarray, position: float) -> np.ndarray:
+    """sin(k pi x): mode k's shape at the point x (a fraction of the string from the bridge)."""
+    return np.sin(np.asarray(k, dtype=float) * (np.pi * float(position)))
+
+
+def aperture_sinc(k: np.ndarray, width: float) -> np.ndarray:
+    """sinc(k pi w / 2) = sin(u) / u: the mode shape averaged over an aperture of width w.
+
+    Written out because np.sinc makes several temporaries; u = 0 has the limit 1.
+    """
+    u = np.asarray(k, dtype=float) * (np.pi * float(width) / 2.0)
+    return np.divide(np.sin(u), u, out=np.ones_like(u), where=u != 0)
 
 
 def first_aperture_null(width: float) -> float:
