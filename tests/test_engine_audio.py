@@ -329,3 +329,31 @@ def test_partial_bent_past_the_cut_off_falls_silent_and_returns_when_the_bend_do
     hz = np.fft.rfftfreq(9600, 1 / FS)
     top = k_top * f0 * 2 ** (2 * (8191 / 8192) / 12)
     assert db(spec[np.abs(hz - top) < 200].max()) < db(spec.max()) - 100
+
+
+def test_a_live_pluck_change_shapes_the_next_note_and_leaves_the_ringing_one_alone():
+    # Excitation parameters act on the next note (the host issue's rule): the ringing note keeps
+    # the pluck it was born with, the next one has the new pluck's harmonics (Fletcher & Rossing 1998).
+    s = clean(string__inharmonicity=0.0, excitation__position=0.2, pickup__0__position=0.15,
+              pickup__0__sensing="displacement")
+    engine = Engine(s, FS, 256)
+    first = [engine.render([(0, 0x90, 57, 127)]).copy()]
+    engine.set_value("excitation.position", 0.5)
+    first += [engine.render().copy() for _ in range(40)]
+    x = np.concatenate(first)[:9600]
+    k = np.arange(1, 25)
+    f = 220.0 * k
+    c = fit_damped_modes(x, FS, f, damping(f))
+    expected = predicted_levels(k, 0.2, 0.15, "displacement")
+    audible = expected > expected.max() * 10 ** (-50 / 20)
+    np.testing.assert_allclose(db(c[audible]), db(expected[audible]), atol=0.5)
+    engine.render([(0, 0xB0, 120, 0)])  # all sound off, then a fresh note on another pitch
+    for _ in range(40):
+        engine.render()
+    second = np.concatenate([engine.render([(0, 0x90, 45, 127)]).copy()] + [engine.render().copy() for _ in range(40)])
+    f = 110.0 * k
+    c = fit_damped_modes(second[:9600], FS, f, damping(f))
+    expected = predicted_levels(k, 0.5, 0.15, "displacement")
+    audible = expected > expected.max() * 10 ** (-50 / 20)
+    assert not audible[1::2].any()  # a pluck at the middle has no even harmonics
+    np.testing.assert_allclose(db(c[audible]), db(expected[audible]), atol=0.5)
