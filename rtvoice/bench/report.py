@@ -124,7 +124,8 @@ def render_text(r: dict) -> str:
     out += ["", "## Real-time callback under the JACK dummy server (the host, every feature on)", ""]
     if rt.get("available"):
         out.append(f"- {rt['voices']} voices x {rt['modes']} modes, {rt['period_frames']}-frame periods, "
-                   "a chord strummed every 2 s and a pickup swung 20 times a second")
+                   "a chord strummed every 2 s and a pickup swung 20 times a second; the server ran with "
+                   f"{rt.get('server_scheduling', 'ordinary')} scheduling")
         for key, label in (("without_ui", "headless"), ("with_ui", "with the terminal UI drawing")):
             m = rt[key]
             extra = f", {m['ui_frames_drawn']} UI frames" if "ui_frames_drawn" in m else ""

@@ -30,6 +30,9 @@ TARGET_OFFLINE_X = 100.0
 #: "Near zero": 127 idle slots together add under 1 % of the block period, and a
 #: silent engine (output stage only) stays under 5 % of it.
 IDLE_SLOTS_LOAD, SILENT_LOAD = 0.01, 0.05
+#: The host's target: callback p99 at most this share of a 128-frame period (32 voices), and
+#: no more xruns with the UI drawing than without it over the same stretch on the same server.
+TARGET_CALLBACK_P99 = 0.35
 
 
 @dataclass(frozen=True)
@@ -52,7 +55,7 @@ class Plan:
 
 FULL = Plan("full", [1, 2, 4, 8, 16, 32, 64, 128], [16, 32, 64, 128, 256], [64, 128, 256], 300,
             [(8, 64), (16, 64), (32, 128), (16, 256), (64, 128)], 3.0, [1024, 4096, 16384, 65536],
-            3, 3, [96, 128, 256], 10.0, [256, 1024, 2048, 4096])
+            3, 3, [96, 128, 256], 60.0, [256, 1024, 2048, 4096])
 QUICK = Plan("quick", [1, 16, 64, 128], [16, 128, 256], [128], 60,
              [(32, 128)], 0.5, [4096], 1, 1, [128], 0.0, [])
 
@@ -162,4 +165,16 @@ def evaluate_targets(result: dict, grid, steady) -> list[dict]:
         f"silent engine {100 * idle['silent_load']:.1f} %",
         f"idle slots < {100 * IDLE_SLOTS_LOAD:.0f} %, silent engine < {100 * SILENT_LOAD:.0f} %",
         slots_load < IDLE_SLOTS_LOAD and idle["silent_load"] < SILENT_LOAD)
+    rt = result.get("realtime_host", {})
+    if rt.get("available"):
+        head, ui = rt["without_ui"], rt["with_ui"]
+        where = (f"{rt['voices']} voices x {rt['modes']} modes, {rt['period_frames']} frames, JACK dummy server "
+                 f"({rt['server_scheduling']} scheduling)")
+        add(f"host callback p99 under JACK, {where}",
+            f"headless {100 * head['load_p99']:.1f} %, with the UI {100 * ui['load_p99']:.1f} %",
+            f"p99 <= {100 * TARGET_CALLBACK_P99:.0f} % of the period",
+            max(head["load_p99"], ui["load_p99"]) <= TARGET_CALLBACK_P99)
+        add("xruns with the UI drawing vs headless, same server",
+            f"{ui['xruns']} with the UI in {ui['seconds']} s, {head['xruns']} headless in {head['seconds']} s",
+            "no more with the UI", ui["xruns"] <= head["xruns"])
     return targets
