@@ -43,6 +43,7 @@ SMOOTHING_S = 0.015  # time constant of live parameter smoothing
 NOTE_PARAM_PREFIXES = ("string.", "excitation.")
 
 Event = tuple[int, int, int, int]  # (sample offset in block, status, data1, data2)
+START, RELEASE, FADE = 1, 2, 3  # what a recorded change does to a voice
 
 
 @dataclass
@@ -118,6 +119,13 @@ class Engine:
         self._touched = np.zeros(slots, bool)
         self._upto = np.zeros(slots, np.int64)
         self._touched_list: list[int] = []
+        self._dirty = np.zeros(slots, bool)  # tables to rebuild (see _mark_tables)
+        self._dirty_list: list[int] = []
+        self._changes: list[tuple] = []  # (slot, sample, kind, data) recorded by the first pass of a block
+        self._sample_index = np.arange(n1 * n2)
+        self._ramp_ext = np.concatenate([self._ramp, np.ones(n1 * n2)])  # ramp[start + j], past the end too
+        self._bound = np.zeros(slots)  # voice level bounds for stealing, valid in block _bound_block
+        self._bound_block = -1
         self._stash = np.zeros((slots, modes), complex)
         self._views: dict[int, _BulkViews] = {}  # by number of active voices
         self._pickup_sums = PickupSums(modes)
@@ -203,16 +211,22 @@ class Engine:
 
     # -- rendering ----------------------------------------------------------------
     def render(self, events: Iterable[Event] = ()) -> np.ndarray:
-        """Render one block with ``events`` placed on their sample offsets."""
+        """Render one block with ``events`` placed on their sample offsets.
+
+        Events are handled in two passes. The first makes every decision in time
+        order (which voice starts, is released, faded or stolen) and records what
+        changes in each voice at which sample; the second renders the touched voices
+        up to their changes and applies them, all voices at once per round, so a
+        chord costs a few array operations rather than a few per note.
+        """
         pool, n_blk = self.pool, self.block
         if self._exact_used:
             self._exact[:] = 0.0
             self._exact_used = False
         ramping = self._step_pickups()
         for offset, status, d1, d2 in events:
-            self._handle(min(max(int(offset), 0), n_blk - 1), status, d1, d2, ramping)
-        for v in self._touched_list:
-            self._render_exact(v, n_blk, ramping)
+            self._handle(min(max(int(offset), 0), n_blk - 1), status, d1, d2)
+        self._apply_changes(ramping)
         self._render_bulk(ramping)
         if ramping:
             pool.g[: pool.n_active] = self._g_next[: pool.n_active]
@@ -229,6 +243,7 @@ class Engine:
             out[:] = 0.0
             self._clear_touched()
             return
+        self._flush_tables()
         views = self._views.get(n)
         if views is None:
             views = self._views[n] = _BulkViews(self, n)
@@ -263,41 +278,94 @@ class Engine:
             self._touched[v] = False
         self._touched_list.clear()
 
-    def _touch(self, v: int, at: int, ramping: bool) -> None:
-        """Render slot v up to sample ``at`` on the exact path, so it may change there."""
+    def _touch(self, v: int, fresh_at: int | None = None) -> None:
+        """Put slot v on the exact path for this block (from sample ``fresh_at`` for a new voice)."""
         if not self._touched[v]:
             self._touched[v] = True
-            self._upto[v] = 0
+            self._upto[v] = 0 if fresh_at is None else fresh_at
             self._touched_list.append(v)
-        self._render_exact(v, at, ramping)
 
-    def _render_exact(self, v: int, stop: int, ramping: bool) -> None:
+    def _apply_changes(self, ramping: bool) -> None:
+        """Second pass: render each touched voice up to its next change, apply the changes, repeat."""
+        changes = self._changes
+        if changes:
+            queues: dict[int, list] = {}
+            for change in changes:
+                queues.setdefault(change[0], []).append(change)
+            changes.clear()
+            depth = max(len(q) for q in queues.values())
+            for step in range(depth):
+                now = [q[step] for q in queues.values() if len(q) > step]
+                self._render_segments([c[0] for c in now], [c[1] for c in now], ramping)
+                starts = [c for c in now if c[2] == START]
+                if starts:
+                    self._start_voices(starts)
+                for v, _, kind, _ in now:
+                    if kind == RELEASE:
+                        self.pool.sigma[v] = release_rate_per_s(self.pool.sigma_hold[v], self._release_t60)
+                    elif kind == FADE:
+                        np.maximum(self.pool.sigma[v], LN_1000 / FADE_T60_S, out=self.pool.sigma[v])
+                    self._mark_tables(v)
+                self._flush_tables()
+        # A voice changed only at sample 0 is as good as untouched: the block product renders it.
+        touched = self._touched_list
+        if any(self._upto[v] == 0 for v in touched):
+            for v in [v for v in touched if self._upto[v] == 0]:
+                self._touched[v] = False
+            touched[:] = [v for v in touched if self._touched[v]]
+        if touched:
+            self._render_segments(touched, [self.block] * len(touched), ramping)
+
+    def _render_segments(self, slots: list[int], stops: list[int], ramping: bool) -> None:
+        """Render each of ``slots`` on the exact path from where it stands up to its sample in ``stops``."""
         pool = self.pool
-        start = int(self._upto[v])
+        idx = np.asarray(slots)
+        stop = np.asarray(stops)
+        start = self._upto[idx]
         count = stop - start
-        if count <= 0:
+        keep = count > 0
+        if not keep.all():
+            idx, start, stop, count = idx[keep], start[keep], stop[keep], count[keep]
+        if idx.size == 0:
             return
-        z0 = pool.segment(v, pool.g[v] * pool.s[v], count)
-        seg = self._exact[start:stop]
-        self._exact_used = True
+        s = pool.s[idx]
+        y = pool.segments(idx, pool.g[idx] * s, int(count.max()))
         if ramping:
-            z1 = pool.segment(v, self._g_next[v] * pool.s[v], count)
-            r = self._ramp[start:stop]
-            seg += z0.real + (z1.real - z0.real) * r
-        else:
-            seg += z0.real
-        pool.s[v] *= pool.power(v, count)
-        self._upto[v] = stop
+            y_next = pool.segments(idx, self._g_next[idx] * s, int(count.max()))
+            y_next -= y
+            y_next *= self._ramp_ext[start[:, None] + self._sample_index[: y.shape[1]]]
+            y += y_next
+        exact = self._exact
+        for i in range(idx.size):
+            exact[start[i]:stop[i]] += y[i, : count[i]]
+        self._exact_used = True
+        pool.s[idx] = s * np.exp(pool.logp[idx] * count[:, None])  # double precision: nothing drifts
+        self._upto[idx] = stop
+
+    def _mark_tables(self, v: int) -> None:
+        """Slot v's sigma or omega changed: rebuild its tables before they are next read.
+
+        The rebuilds of a block are done together (one vectorised call for a whole chord).
+        """
+        if not self._dirty[v]:
+            self._dirty[v] = True
+            self._dirty_list.append(v)
+
+    def _flush_tables(self) -> None:
+        if self._dirty_list:
+            self.pool.update_tables_at(np.array(self._dirty_list))
+            self._dirty[self._dirty_list] = False
+            self._dirty_list.clear()
 
     # -- events -------------------------------------------------------------------
-    def _handle(self, at: int, status: int, d1: int, d2: int, ramping: bool) -> None:
+    def _handle(self, at: int, status: int, d1: int, d2: int) -> None:
         kind, ch = status & 0xF0, status & 0x0F
         if kind == midi.NOTE_ON and d2 > 0:
-            self._note_on(at, ch, d1 & 0x7F, d2 & 0x7F, ramping)
+            self._note_on(at, ch, d1 & 0x7F, d2 & 0x7F)
         elif kind == midi.NOTE_OFF or kind == midi.NOTE_ON:
-            self._note_off(at, ch, d1 & 0x7F, ramping)
+            self._note_off(at, ch, d1 & 0x7F)
         elif kind == midi.CONTROL_CHANGE:
-            self._control(at, ch, d1 & 0x7F, d2 & 0x7F, ramping)
+            self._control(at, ch, d1 & 0x7F, d2 & 0x7F)
         elif kind == midi.PITCH_BEND:
             self.channels.set_bend(ch, (d1 & 0x7F) | ((d2 & 0x7F) << 7))
             self._bend_dirty = True
@@ -306,94 +374,113 @@ class Engine:
             if self.pressure_hook:
                 self.pressure_hook(ch, self.channels.pressure[ch])
 
-    def _note_on(self, at: int, ch: int, note: int, velocity: int, ramping: bool) -> None:
+    def _note_on(self, at: int, ch: int, note: int, velocity: int) -> None:
         if self._pending_rebuild is not None:
             return
         pool = self.pool
         n = pool.n_active
+        state = pool.state[:n]
         # A re-plucked note stops its old vibration with a short fade, as a finger would.
-        for v in range(n):
-            if pool.note[v] == note and pool.channel[v] == ch and pool.state[v] != FADING:
-                self._fade(v, at, ramping)
-        sounding = [v for v in range(pool.n_active) if pool.state[v] != FADING]
-        if len(sounding) >= self.voices:
-            bound = pool.bound()
-            quiet = min(sounding, key=lambda v: (bound[v], pool.order[v]))
-            self._fade(quiet, at, ramping)
+        for v in np.flatnonzero((pool.note[:n] == note) & (pool.channel[:n] == ch) & (state != FADING)):
+            self._fade(int(v), at)
+        sounding = np.flatnonzero(state != FADING)
+        if sounding.size >= self.voices:
+            bound = self._bounds()[sounding]
+            quiet = sounding[np.lexsort((pool.order[sounding], bound))[0]]  # quietest, then oldest
+            self._fade(int(quiet), at)
             self.stats.stolen += 1
         v = pool.allocate()
-        if v < 0:  # every slot busy: reuse the quietest fading voice
-            bound = pool.bound()
-            v = int(np.argmin(np.where(pool.state[: pool.n_active] == FADING, bound, np.inf)))
-            self._touch(v, at, ramping)
+        if v < 0:  # every slot busy: reuse the voice that has been fading longest (so the quietest)
+            fading = pool.state[: pool.n_active] == FADING
+            v = int(np.argmin(np.where(fading, pool.fade_since[: pool.n_active], np.iinfo(np.int64).max)))
+            self._touch(v)
         else:
-            self._touched[v] = True
-            self._touched_list.append(v)
-        self._upto[v] = at
-        self._start_voice(v, ch, note, velocity)
-
-    def _start_voice(self, v: int, ch: int, note: int, velocity: int) -> None:
-        pool = self.pool
-        bend = self.channels.voice_bend(ch)
-        f0 = midi_note_to_hz(note, self.settings.get("tuning.a4_hz"))
-        freqs = f0 * self._stretch
-        amp = (velocity / 127.0) ** 2  # square-law velocity curve (common practice)
-        initial = self.excitation_hook(ch) if self.excitation_hook is not None else None
-        pool.s[v] = amp * (self._initial if initial is None else initial)
-        pool.s[v][freqs >= NYQUIST_MARGIN * self.fs] = 0.0
-        pool.omega_base[v] = 2 * np.pi * freqs
-        pool.sigma_hold[v] = decay_rate_per_s(freqs, self._b1, self._b3)
-        pool.sigma[v] = pool.sigma_hold[v]
-        self._set_bend(v, bend)
+            self._touch(v, fresh_at=at)
         pool.state[v] = SOUNDING
         pool.note[v] = note
         pool.velocity[v] = velocity
         pool.channel[v] = ch
         self._order += 1
         pool.order[v] = self._order
-        pool.update_tables(v, v + 1)
-        self._weights(v, v + 1, pool.g)
-        self._g_next[v] = pool.g[v]
+        self._bound[v] = np.inf  # not stolen again in the block it starts in (its level is not set yet)
+        initial = self.excitation_hook(ch) if self.excitation_hook is not None else None
+        self._changes.append((v, at, START, (ch, note, velocity, initial)))
 
-    def _set_bend(self, v: int, bend: float) -> None:
+    def _bounds(self) -> np.ndarray:
+        """Level bounds of the slots for stealing, computed once per block.
+
+        A voice's bound falls by at most one block's decay within the block, so the
+        choice of the quietest voice is the same as with fresh bounds but for near ties.
+        Voices started in this block count as loudest.
+        """
+        if self._bound_block != self.stats.blocks:
+            pool = self.pool
+            self._bound[: pool.n_active] = pool.bound()
+            for v, _, kind, _ in self._changes:
+                if kind == START:
+                    self._bound[v] = np.inf
+            self._bound_block = self.stats.blocks
+        return self._bound
+
+    def _start_voices(self, starts: list) -> None:
+        """Set up the voices of START changes (all at once): amplitudes, frequencies, decay, weights."""
+        pool = self.pool
+        idx = np.array([c[0] for c in starts])
+        ch = [c[3][0] for c in starts]
+        notes = np.array([c[3][1] for c in starts], float)
+        velocity = np.array([c[3][2] for c in starts], float)
+        initial = np.stack([self._initial if c[3][3] is None else c[3][3] for c in starts])
+        freqs = midi_note_to_hz(notes, self.settings.get("tuning.a4_hz"))[:, None] * self._stretch
+        amp = (velocity / 127.0) ** 2  # square-law velocity curve (common practice)
+        s = amp[:, None] * initial
+        s[freqs >= NYQUIST_MARGIN * self.fs] = 0.0
+        pool.s[idx] = s
+        pool.omega_base[idx] = 2 * np.pi * freqs
+        sigma = decay_rate_per_s(freqs, self._b1, self._b3)
+        pool.sigma_hold[idx] = sigma
+        pool.sigma[idx] = sigma
+        self._set_bends(idx, np.array([self.channels.voice_bend(c) for c in ch]))
+        g = self.pool.deriv[idx] * self._vel + self._disp  # the pickup weights (see _weights)
+        pool.g[idx] = g
+        self._g_next[idx] = g
+
+    def _set_bends(self, idx: np.ndarray, bend: np.ndarray) -> None:
         pool = self.pool
         factor = 2.0 ** (bend / 12.0)
-        pool.bend[v] = bend
-        pool.omega[v] = pool.omega_base[v] * factor
-        pool.omega1[v] = pool.omega_base[v, 0] * factor
-        pool.deriv[v] = velocity_factor(pool.sigma_hold[v], pool.omega[v], pool.omega1[v])
-        pool.audible[v] = pool.omega[v] < pool.omega_limit
+        pool.bend[idx] = bend
+        omega = pool.omega_base[idx] * factor[:, None]
+        pool.omega[idx] = omega
+        pool.omega1[idx] = omega[:, 0]
+        pool.deriv[idx] = velocity_factor(pool.sigma_hold[idx], omega, omega[:, :1])
+        pool.audible[idx] = omega < pool.omega_limit
 
-    def _note_off(self, at: int, ch: int, note: int, ramping: bool) -> None:
+    def _note_off(self, at: int, ch: int, note: int) -> None:
         pool = self.pool
-        for v in range(pool.n_active):
-            if pool.note[v] == note and pool.channel[v] == ch and pool.state[v] == SOUNDING:
-                if self.channels.sustain[ch]:
-                    pool.state[v] = HELD
-                else:
-                    self._release(v, at, ramping)
+        n = pool.n_active
+        for v in np.flatnonzero((pool.note[:n] == note) & (pool.channel[:n] == ch) & (pool.state[:n] == SOUNDING)):
+            if self.channels.sustain[ch]:
+                pool.state[v] = HELD
+            else:
+                self._release(int(v), at)
 
-    def _release(self, v: int, at: int, ramping: bool) -> None:
-        pool = self.pool
-        self._touch(v, at, ramping)
-        pool.state[v] = RELEASED
-        pool.sigma[v] = release_rate_per_s(pool.sigma_hold[v], self._release_t60)
-        pool.update_tables(v, v + 1)
+    def _release(self, v: int, at: int) -> None:
+        self._touch(v)
+        self.pool.state[v] = RELEASED
+        self._changes.append((v, at, RELEASE, None))
 
-    def _fade(self, v: int, at: int, ramping: bool) -> None:
-        pool = self.pool
-        self._touch(v, at, ramping)
-        pool.state[v] = FADING
-        pool.sigma[v] = np.maximum(pool.sigma[v], LN_1000 / FADE_T60_S)
-        pool.update_tables(v, v + 1)
+    def _fade(self, v: int, at: int) -> None:
+        self._touch(v)
+        self.pool.state[v] = FADING
+        self.pool.fade_since[v] = self.stats.blocks * self.block + at
+        self._changes.append((v, at, FADE, None))
 
-    def _fade_all(self, at: int, channel: int | None = None, ramping: bool = False) -> None:
+    def _fade_all(self, at: int, channel: int | None = None) -> None:
         pool = self.pool
         for v in range(pool.n_active):
             if pool.state[v] != FADING and (channel is None or pool.channel[v] == channel):
-                self._fade(v, at, ramping)
+                self._fade(v, at)
 
-    def _control(self, at: int, ch: int, cc: int, value: int, ramping: bool) -> None:
+    def _control(self, at: int, ch: int, cc: int, value: int) -> None:
         chan, pool = self.channels, self.pool
         if cc == midi.CC_SUSTAIN:
             down = value >= 64
@@ -401,22 +488,22 @@ class Engine:
             if not down:
                 for v in range(pool.n_active):
                     if pool.channel[v] == ch and pool.state[v] == HELD:
-                        self._release(v, at, ramping)
+                        self._release(v, at)
         elif cc == midi.CC_ALL_SOUND_OFF:
-            self._fade_all(at, ch, ramping)
+            self._fade_all(at, ch)
         elif cc == midi.CC_ALL_NOTES_OFF:
             for v in range(pool.n_active):
                 if pool.channel[v] == ch and pool.state[v] == SOUNDING:
                     if chan.sustain[ch]:
                         pool.state[v] = HELD
                     else:
-                        self._release(v, at, ramping)
+                        self._release(v, at)
         elif cc == midi.CC_RESET_CONTROLLERS:
             held = chan.sustain[ch]
             chan.reset_controllers(ch)
             self._bend_dirty = True
             if held:
-                self._control(at, ch, midi.CC_SUSTAIN, 0, ramping)
+                self._control(at, ch, midi.CC_SUSTAIN, 0)
         elif cc == midi.CC_RPN_MSB:
             chan.rpn[ch] = (value, chan.rpn[ch][1])
         elif cc == midi.CC_RPN_LSB:
@@ -438,13 +525,19 @@ class Engine:
         """Retune ringing voices to their channel's bend (takes effect at the block boundary)."""
         self._bend_dirty = False
         pool = self.pool
-        for v in range(pool.n_active):
-            bend = self.channels.voice_bend(int(pool.channel[v]))
-            if bend != pool.bend[v]:
-                self._set_bend(v, bend)
-                pool.update_tables(v, v + 1)
-                self._weights(v, v + 1, pool.g)
-                self._g_next[v] = pool.g[v]
+        n = pool.n_active
+        if n == 0:
+            return
+        bend = np.array([self.channels.voice_bend(int(c)) for c in pool.channel[:n]])
+        changed = np.flatnonzero(bend != pool.bend[:n])
+        if changed.size:
+            self._set_bends(changed, bend[changed])
+            g = pool.deriv[changed] * self._vel + self._disp
+            pool.g[changed] = g
+            self._g_next[changed] = g
+            for v in changed:
+                self._mark_tables(int(v))
+            self._flush_tables()
 
     # -- live parameters ----------------------------------------------------------
     def _step_pickups(self) -> bool:

@@ -36,12 +36,25 @@ def block_split(block_frames: int, inner: int | None = None) -> tuple[int, int]:
     return n1, n2
 
 
-def _running_powers(p: np.ndarray, count: int) -> np.ndarray:
-    """p^0 .. p^(count - 1) along a new last axis, by repeated multiplication (one cumprod)."""
-    out = np.empty(p.shape + (count,), complex)
-    out[..., 0] = 1.0
-    out[..., 1:] = p[..., None]
-    return np.cumprod(out, axis=-1, out=out)
+def _powers_into(p: np.ndarray, out: np.ndarray) -> np.ndarray:
+    """out[j] = p^j for j = 0..len(out)-1, by doubling: about 2 log2(len(out)) array products.
+
+    Each step multiplies the powers found so far by the next power of two of p, so the
+    work is vectorised over every mode of every voice at once (a cumulative product
+    along a short axis is not).
+    """
+    count = out.shape[0]
+    out[0] = 1.0
+    if count > 1:
+        out[1] = p
+    done, step = 2, p * p
+    while done < count:
+        m = min(done, count - done)
+        np.multiply(out[:m], step, out=out[done:done + m])
+        done += m
+        if done < count:
+            step = step * step
+    return out
 
 
 class VoicePool:
@@ -61,6 +74,7 @@ class VoicePool:
         self.omega_base = np.zeros(shape)  # unbent angular frequency, rad/s
         self.omega = np.zeros(shape)  # bent angular frequency, rad/s
         self.p_block = np.zeros(shape, complex)  # p^N
+        self.logp = np.zeros(shape, complex)  # log p = (-sigma + i omega) / fs
         # A_rows[v, m] = [Re A[v, m, :], -Im A[v, m, :]]; B_t[j, v, m] = B[v, m, j].
         self.A_rows = np.zeros((slots, modes, 2, self.n1), np.float32)
         self.B_t = np.zeros((self.n2 + 1, slots, modes), np.complex64)
@@ -72,49 +86,51 @@ class VoicePool:
         self.velocity = np.zeros(slots, np.int16)  # note-on velocity 1..127
         self.channel = np.zeros(slots, np.int8)
         self.order = np.zeros(slots, np.int64)  # start order, for stealing ties
+        self.fade_since = np.zeros(slots, np.int64)  # sample (since the engine started) its fade began
         self.omega1 = np.ones(slots)  # bent fundamental, rad/s: velocity-pickup reference
         self.bend = np.zeros(slots)  # semitones applied to omega
         self.n_active = 0
 
     # -- tables -----------------------------------------------------------------
     def update_tables(self, lo: int, hi: int) -> None:
-        """Rebuild the power tables of slots lo..hi-1 from their sigma and omega.
+        """Rebuild the power tables of slots lo..hi-1 from their sigma and omega."""
+        if hi > lo:
+            self.update_tables_at(slice(lo, hi))
+
+    def update_tables_at(self, slots: slice | np.ndarray) -> None:
+        """Rebuild the power tables of ``slots`` (a slice or an index array) from their sigma and omega.
 
         A mode at or above :attr:`omega_limit` (a bend can push one there) gets zero
         rows in A, so no product hears it and the pickup weights need no mask; its
-        amplitude still advances (by ``p_block`` and :meth:`power`), so it returns
-        when the bend comes back.
+        amplitude still advances (by ``p_block`` and ``logp``, in double precision),
+        so it returns when the bend comes back.
         """
-        if hi <= lo:
-            return
-        logp = (-self.sigma[lo:hi] + 1j * self.omega[lo:hi]) / self.fs
+        sigma, omega = self.sigma[slots], self.omega[slots]
+        logp = (-sigma + 1j * omega) / self.fs
+        self.logp[slots] = logp
         p = np.exp(logp)
-        a = _running_powers(p, self.n1)
-        b = _running_powers(a[..., -1] * p, self.n2 + 1)  # powers of p^N1
-        a[self.omega[lo:hi] >= self.omega_limit] = 0.0
-        self.A_rows[lo:hi, :, 0, :] = a.real
-        self.A_rows[lo:hi, :, 1, :] = -a.imag
-        self.B_t[:, lo:hi, :] = np.moveaxis(b, -1, 0)
-        self.p_block[lo:hi] = np.exp(logp * self.block)
+        a = _powers_into(p, np.empty((self.n1,) + p.shape, complex))  # a[j] = p^j
+        b = _powers_into(a[-1] * p, np.empty((self.n2 + 1,) + p.shape, complex))  # b[j] = p^(N1 j)
+        unheard = omega >= self.omega_limit
+        if unheard.any():
+            a[:, unheard] = 0.0
+        rows = np.moveaxis(a, 0, -1)  # (voices, modes, N1)
+        self.A_rows[slots, :, 0, :] = rows.real
+        self.A_rows[slots, :, 1, :] = -rows.imag
+        self.B_t[:, slots, :] = b
+        self.p_block[slots] = np.exp(logp * self.block)
 
-    def segment(self, v: int, d: np.ndarray, count: int) -> np.ndarray:
-        """sum over modes m of d[m] p[m]^j for j = 0..count-1 (count <= N1 * N2), as complex samples.
+    def segments(self, slots: np.ndarray, d: np.ndarray, count: int) -> np.ndarray:
+        """Re of sum over modes m of d[i, m] p[m]^j for each slot i and j = 0..count-1 (count <= N1 * N2).
 
-        The same factoring as the block product, for one voice: (B * d)^T A, so no
-        (modes x count) table of powers is ever built.
+        The same factoring and the same real single-precision product as the block
+        (see :mod:`rtvoice.engine.renderer`), batched over ``slots``: returns float32
+        samples of shape (len(slots), at least count).
         """
-        a, b = self._complex_tables(v)
         rows = -(-count // self.n1)
-        return ((b[:, :rows] * d[:, None]).T @ a).reshape(-1)[:count]
-
-    def power(self, v: int, j: int) -> np.ndarray:
-        """p^j of slot v (every mode, heard or not)."""
-        return np.exp((-self.sigma[v] + 1j * self.omega[v]) * (j / self.fs))
-
-    def _complex_tables(self, v: int) -> tuple[np.ndarray, np.ndarray]:
-        """(A, B) of slot v as complex arrays of shape (modes, N1) and (modes, N2 + 1)."""
-        rows = self.A_rows[v]
-        return rows[:, 0, :] - 1j * rows[:, 1, :], self.B_t[:, v, :].T
+        c = np.multiply(self.B_t[:rows, slots, :].transpose(1, 0, 2), d[:, None, :], dtype=np.complex64)
+        y = c.view(np.float32) @ self.A_rows[slots].reshape(len(slots), 2 * self.modes, self.n1)
+        return y.reshape(len(slots), -1)
 
     # -- slots ------------------------------------------------------------------
     def allocate(self) -> int:
@@ -131,8 +147,8 @@ class VoicePool:
         moved = -1
         if v != last:
             for arr in (self.s, self.g, self.sigma, self.sigma_hold, self.omega_base, self.omega,
-                        self.p_block, self.A_rows, self.deriv, self.audible, self.state, self.note,
-                        self.channel, self.order, self.omega1, self.bend, self.velocity):
+                        self.p_block, self.logp, self.A_rows, self.deriv, self.audible, self.state, self.note,
+                        self.channel, self.order, self.fade_since, self.omega1, self.bend, self.velocity):
                 arr[v] = arr[last]
             self.B_t[:, v] = self.B_t[:, last]
             moved = last
