@@ -10,6 +10,7 @@ from __future__ import annotations
 import argparse
 import importlib
 import sys
+import warnings
 
 #: Modules that add subcommands, in the order ``--help`` lists them.
 COMMAND_MODULES = [
@@ -38,8 +39,14 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+def _one_line_warning(message, category, filename, lineno, file=None, line=None) -> None:
+    """Warnings meant for the user (e.g. a preset from a newer version) as one line, without source lines."""
+    (file or sys.stderr).write(f"rtvoice: warning: {message}\n")
+
+
 def main(argv: list[str] | None = None) -> int:
     argv = sys.argv[1:] if argv is None else argv
+    warnings.showwarning = _one_line_warning
     parser = build_parser()
     if not argv and "play" in parser._subparsers._group_actions[0].choices:  # plain rtvoice opens the UI
         argv = ["play"]

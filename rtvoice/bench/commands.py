@@ -12,10 +12,13 @@ from rtvoice.bench.machine import BLAS_THREADS_ENV
 
 
 def register(sub: argparse._SubParsersAction) -> None:
+    from rtvoice.offline.commands import output_path  # checked before minutes of measuring, not after
+
     b = sub.add_parser("bench", help="measure engine cost beside the machine's limit and the baselines")
     b.add_argument("--quick", action="store_true", help="a smaller grid that finishes in under 30 s")
     b.add_argument("--json", action="store_true", help="print one JSON object with every figure")
-    b.add_argument("--write", metavar="FILE", help="also write the figures to FILE (.json: JSON, else the table)")
+    b.add_argument("--write", metavar="FILE", type=output_path,
+                   help="also write the figures to FILE (.json: JSON, else the table)")
     b.set_defaults(func=run_bench)
 
 

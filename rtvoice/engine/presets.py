@@ -4,20 +4,44 @@ Factory presets live in the repository's ``presets/`` folder and are read-only;
 user presets live in the per-user data directory (``RTVOICE_HOME`` overrides it,
 for tests and portable set-ups). Loading validates everything and names the
 file, key, value and what is allowed; saving is atomic (temporary file, fsync,
-rename), so a crash never leaves a half-written preset.
+rename, fsync of the folder), so a crash never leaves a half-written preset.
+
+Presets are data only: the file is parsed as TOML and every value is checked
+against the schema; nothing in it is evaluated, imported or executed.
+
+Temporary files are named ``.NAME.toml.XXXX.tmp``: listing skips them (hidden,
+not ``*.toml``). A save killed between creating and renaming its temporary file
+leaves it behind; the next save into the folder deletes every such leftover
+while it holds the folder's lock (``flock`` on the folder), so it never removes
+a temporary file that another save is still writing.
+
+A preset from a newer rtvoice (``format`` above ours) loads with a
+:class:`PresetWarning` naming the keys this version skipped: a player would
+rather hear the sound close to what was saved than not at all, and the warning
+says what is missing. Without that marker unknown keys are refused, because
+there they are most likely typing mistakes.
 """
 
 from __future__ import annotations
 
+import contextlib
 import os
 import re
 import tempfile
+import tomllib
+import warnings
+from collections.abc import Iterator
 from dataclasses import dataclass
 from pathlib import Path
 
 import tomli_w
 
-from rtvoice.engine.settings import Settings, SettingsError
+from rtvoice.engine.settings import PRESET_FORMAT, Settings, SettingsError
+
+try:
+    import fcntl
+except ImportError:  # not POSIX: saves are still atomic, leftovers are kept
+    fcntl = None  # type: ignore[assignment]
 
 MAX_PRESET_BYTES = 256 * 1024
 NAME_PATTERN = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_-]{0,63}$")
@@ -26,6 +50,13 @@ FACTORY_DIR = Path(__file__).resolve().parents[2] / "presets"
 
 class PresetError(ValueError):
     """A preset that cannot be read or written, with the reason in plain words."""
+
+
+class PresetWarning(UserWarning):
+    """A preset loaded with something left out (keys from a newer rtvoice); the message lists them."""
+
+
+TEMP_PATTERN = re.compile(r"^\.[A-Za-z0-9][A-Za-z0-9_-]{0,63}\.toml\..+\.tmp$")
 
 
 @dataclass(frozen=True)
@@ -83,23 +114,39 @@ def find_preset(name_or_path: str) -> PresetInfo:
 
 
 def read_preset_file(path: Path | str) -> Settings:
-    """Load and validate one preset file; raises PresetError or SettingsError."""
+    """Load and validate one preset file; raises PresetError or SettingsError.
+
+    A preset from a newer rtvoice loads with a :class:`PresetWarning` listing the keys left out.
+    """
     path = Path(path)
     try:
         size = path.stat().st_size
         if size > MAX_PRESET_BYTES:
             raise PresetError(f"{path}: {size} bytes is larger than a preset can be ({MAX_PRESET_BYTES})")
-        raw = path.read_bytes()
+        with open(path, "rb") as fh:
+            raw = fh.read(MAX_PRESET_BYTES + 1)  # the file may grow between stat and read
     except OSError as err:
         raise PresetError(f"{path}: cannot read ({err.strerror or err})") from None
+    return preset_from_bytes(raw, str(path), default_name=path.stem)
+
+
+def preset_from_bytes(raw: bytes, source: str, default_name: str = "") -> Settings:
+    """Validate the bytes of a preset file (named ``source`` in messages); see :func:`read_preset_file`."""
+    if len(raw) > MAX_PRESET_BYTES:
+        raise PresetError(f"{source}: larger than a preset can be ({MAX_PRESET_BYTES} bytes)")
     try:
-        text = raw.decode("utf-8")
+        text = raw.decode("utf-8-sig")  # some editors start UTF-8 files with a byte-order mark
     except UnicodeDecodeError:
-        raise PresetError(f"{path}: not a text file (preset files are UTF-8 TOML)") from None
+        raise PresetError(f"{source}: not a text file (preset files are UTF-8 TOML)") from None
     if not text.strip():
-        raise PresetError(f"{path}: empty file")
-    settings = Settings.from_toml_text(text, source=str(path))
-    return settings if settings.name else settings.renamed(path.stem)
+        raise PresetError(f"{source}: empty file")
+    ignored: list[str] = []
+    settings = Settings.from_toml_text(text, source=source, ignored=ignored)
+    if ignored:
+        shown = ", ".join(ignored[:12]) + (f" and {len(ignored) - 12} more" if len(ignored) > 12 else "")
+        warnings.warn(PresetWarning(f"{source}: written by a newer rtvoice; left out what this version does "
+                                    f"not know: {shown}"), stacklevel=2)
+    return settings if settings.name or not default_name else settings.renamed(default_name)
 
 
 def load_preset(name_or_path: str) -> Settings:
@@ -111,7 +158,7 @@ def preset_text(settings: Settings) -> str:
     data = settings.to_nested()
     lists = {k: data.pop(k) for k in list(data) if isinstance(data[k], list) and data[k]
              and all(isinstance(v, dict) for v in data[k])}
-    parts = [tomli_w.dumps(data)]
+    parts = [f"format = {PRESET_FORMAT}\n", tomli_w.dumps(data)]
     for key, items in lists.items():
         parts += [f"\n[[{key}]]\n" + tomli_w.dumps(item) for item in items]
     return "".join(parts)
@@ -132,12 +179,70 @@ def save_preset(settings: Settings, name: str) -> Path:
         raise PresetError(f"cannot create the preset folder {folder}: {err.strerror or err}") from None
     target = folder / f"{name}.toml"
     data = preset_text(settings.renamed(name)).encode("utf-8")
-    write_atomic(target, data)
+    with _folder_lock(folder):
+        newer = _newer_format(target)
+        if newer:
+            raise PresetError(f"{target} was written by a newer rtvoice (preset format {newer}); saving over it "
+                              "would drop what this version cannot keep: save under another name")
+        remove_leftovers(folder)
+        write_atomic(target, data)
     return target
 
 
+def _newer_format(path: Path) -> int:
+    """The ``format`` of an existing preset file when it is newer than ours, else 0."""
+    try:
+        with open(path, "rb") as fh:
+            data = tomllib.loads(fh.read(MAX_PRESET_BYTES + 1).decode("utf-8-sig"))
+    except (OSError, UnicodeDecodeError, tomllib.TOMLDecodeError, RecursionError):
+        return 0  # missing or unreadable: nothing this version could keep anyway
+    value = data.get("format")
+    newer = isinstance(value, int) and not isinstance(value, bool) and value > PRESET_FORMAT
+    return value if newer else 0
+
+
+@contextlib.contextmanager
+def _folder_lock(folder: Path) -> Iterator[None]:
+    """Hold an exclusive ``flock`` on the folder (released by the kernel if the process dies)."""
+    if fcntl is None:
+        yield
+        return
+    try:
+        fd = os.open(folder, os.O_RDONLY)
+    except OSError as err:
+        raise PresetError(f"cannot open the preset folder {folder}: {err.strerror or err}") from None
+    try:
+        fcntl.flock(fd, fcntl.LOCK_EX)
+        yield
+    finally:
+        os.close(fd)  # closing drops the lock
+
+
+def remove_leftovers(folder: Path) -> list[str]:
+    """Delete temporary files of saves that died before renaming; only call under the folder lock."""
+    removed = []
+    if fcntl is None:
+        return removed
+    try:
+        names = os.listdir(folder)
+    except OSError:
+        return removed
+    for entry in names:
+        if TEMP_PATTERN.match(entry):
+            try:
+                os.unlink(folder / entry)
+                removed.append(entry)
+            except OSError:
+                pass  # e.g. a read-only folder: the save itself will say so
+    return removed
+
+
 def write_atomic(target: Path, data: bytes) -> None:
-    """Replace ``target`` with ``data`` so that a crash leaves the old file or the new one, whole."""
+    """Replace ``target`` with ``data`` so that a crash leaves the old file or the new one, whole.
+
+    The data is fsynced before the rename and the folder after it, so after a power
+    cut the name points at the old bytes or the new ones, never at an empty file.
+    """
     fd = -1
     tmp = ""
     try:
@@ -197,12 +302,14 @@ def rename_preset(old: str, new: str) -> Path:
 __all__ = [
     "PresetError",
     "PresetInfo",
+    "PresetWarning",
     "SettingsError",
     "check_name",
     "delete_preset",
     "find_preset",
     "list_presets",
     "load_preset",
+    "preset_from_bytes",
     "read_preset_file",
     "rename_preset",
     "save_preset",

@@ -27,6 +27,11 @@ from rtvoice.engine.schema import (
 from rtvoice.physics.damping import loss_coefficients
 
 MAX_TEXT = 2000
+#: The preset layout this version writes (``format = 1``). A preset that declares a larger number comes
+#: from a newer rtvoice: keys this version does not know are then skipped and reported, not refused.
+PRESET_FORMAT = 1
+MAX_TOML_DEPTH = 32  # tables and arrays nested deeper than any preset needs (tomllib recurses per level)
+INT64 = 2**63  # TOML 1.0: integers are 64-bit; larger ones "must" be an error
 MIN_RESONANCE_HZ = 200.0  # pickup resonances lie in the kHz range; 0 bypasses the filter
 MIN_INDUCTANCE_H = 0.01  # below this a "coil" is no pickup; 0 switches the circuit model off
 
@@ -39,6 +44,9 @@ class SettingsError(ValueError):
         where = f"{source}: " if source else ""
         shown = repr(value)
         shown = shown if len(shown) <= 60 else shown[:57] + "..."
+        # Keys come from the file: a quoted TOML key may hold a newline, and messages are one line.
+        key = key if key.isprintable() else repr(key)[1:-1]
+        key = key if len(key) <= 80 else key[:77] + "..."
         super().__init__(f"{where}{key} = {shown}: {reason}")
 
 
@@ -59,14 +67,31 @@ class Settings:
         return cls(values, (default_pickup(),))
 
     @classmethod
-    def from_nested(cls, data: Mapping[str, Any], source: str = "", base: Settings | None = None) -> Settings:
-        """Settings from preset tables (``[string]``, ``[[pickup]]``, ...) over ``base``."""
+    def from_nested(cls, data: Mapping[str, Any], source: str = "", base: Settings | None = None,
+                    ignored: list[str] | None = None) -> Settings:
+        """Settings from preset tables (``[string]``, ``[[pickup]]``, ...) over ``base``.
+
+        Unknown keys are refused (a misspelt key must not silently leave a sound
+        different from what was written), except in a preset whose ``format`` is
+        newer than :data:`PRESET_FORMAT`: there they are skipped and their dotted
+        names appended to ``ignored`` for the caller to report.
+        """
         base = base or cls.defaults()
+        newer = _preset_format(data.get("format", PRESET_FORMAT), source) > PRESET_FORMAT
+        skipped: list[str] = []
+
+        def unknown(key: str, value: Any, reason: str = "unknown key") -> None:
+            if not newer:
+                raise SettingsError(key, value, reason, source)
+            skipped.append(key)
+
         changes: dict[str, Any] = {}
         name, description = base.name, base.description
         pickups: list[dict[str, Any]] | None = None
         controls = base.controls
         for top, value in data.items():
+            if top == "format":
+                continue
             if top in TOP_LEVEL_TEXT:
                 if not isinstance(value, str) or len(value) > MAX_TEXT:
                     raise SettingsError(top, value, f"expected text of at most {MAX_TEXT} characters", source)
@@ -74,31 +99,47 @@ class Settings:
             elif top == "voices":
                 changes["voices"] = value
             elif top == "pickup":
-                pickups = _read_pickups(value, source)
+                pickups = _read_pickups(value, source, unknown)
             elif top == "control":
                 from rtvoice.engine.controls import check_entries
 
+                if not isinstance(value, list):
+                    raise SettingsError("control", value, "expected [[control]] tables", source)
                 controls = tuple(check_entries(value, source))
             elif isinstance(value, Mapping):
                 for sub, v in value.items():
-                    changes[f"{top}.{sub}"] = v
+                    key = f"{top}.{sub}"
+                    try:
+                        lookup(key)
+                    except KeyError as err:
+                        unknown(key, v, str(err.args[0]).split(": ", 1)[-1])
+                        continue
+                    changes[key] = v
+            elif any(n.startswith(f"{top}.") for n in PARAMS):
+                raise SettingsError(top, value, f"expected a [{top}] table", source)
             else:
-                raise SettingsError(top, value, "unknown key", source)
+                unknown(top, value)
         if pickups is not None:
             for i, item in enumerate(pickups):
                 for f, v in item.items():
                     changes[f"pickup.{i}.{f}"] = v
         n_pickups = None if pickups is None else len(pickups)
         settings = base._changed(changes, source, name, description, n_pickups=n_pickups)
+        if ignored is not None:
+            ignored.extend(skipped)
         return settings if controls is base.controls else replace(settings, controls=controls)
 
     @classmethod
-    def from_toml_text(cls, text: str, source: str = "") -> Settings:
+    def from_toml_text(cls, text: str, source: str = "", ignored: list[str] | None = None) -> Settings:
+        """Settings from a preset's TOML text; see :meth:`from_nested` for ``ignored``."""
         try:
             data = tomllib.loads(text)
         except tomllib.TOMLDecodeError as err:
             raise SettingsError("(file)", "", f"not valid TOML: {err}", source) from None
-        return cls.from_nested(data, source)
+        except RecursionError:
+            raise SettingsError("(file)", "", "tables or arrays nested too deeply", source) from None
+        _check_plain_data(data, source)
+        return cls.from_nested(data, source, ignored=ignored)
 
     def with_values(self, changes: Mapping[str, Any], source: str = "") -> Settings:
         """A copy with dotted-name ``changes`` applied; pickups may grow by appending index n."""
@@ -128,7 +169,7 @@ class Settings:
                 raise SettingsError(key, raw, str(err.args[0]).split(": ", 1)[-1], source) from None
             try:
                 value = param.check(raw)
-            except ValueError as err:
+            except (ValueError, OverflowError) as err:  # OverflowError: an int beyond float range
                 raise SettingsError(key, raw, f"{err} (allowed: {param.describe_range()})", source) from None
             if index is None:
                 values[key] = value
@@ -208,16 +249,42 @@ class Settings:
         return out
 
 
-def _read_pickups(value: Any, source: str) -> list[dict[str, Any]]:
+def _read_pickups(value: Any, source: str, unknown) -> list[dict[str, Any]]:
     if not isinstance(value, list) or not all(isinstance(v, Mapping) for v in value):
         raise SettingsError("pickup", value, "expected [[pickup]] tables", source)
     if not 1 <= len(value) <= MAX_PICKUPS:
         raise SettingsError("pickup", f"{len(value)} tables", f"between 1 and {MAX_PICKUPS} pickups", source)
+    out = []
     for i, item in enumerate(value):
+        kept = {}
         for f in item:
-            if f not in PICKUP_FIELDS:
-                raise SettingsError(f"pickup.{i}.{f}", item[f], "unknown key", source)
-    return [dict(v) for v in value]
+            if f in PICKUP_FIELDS:
+                kept[f] = item[f]
+            else:
+                unknown(f"pickup.{i}.{f}", item[f])
+        out.append(kept)
+    return out
+
+
+def _preset_format(value: Any, source: str) -> int:
+    if isinstance(value, bool) or not isinstance(value, int) or not 1 <= value < INT64:
+        raise SettingsError("format", value, f"expected a whole number >= 1 (this version writes {PRESET_FORMAT})",
+                            source)
+    return value
+
+
+def _check_plain_data(data: Any, source: str, depth: int = 0, where: str = "") -> None:
+    """Refuse what TOML allows but no preset holds: deep nesting, integers beyond 64 bits."""
+    if depth > MAX_TOML_DEPTH:
+        raise SettingsError(where or "(file)", "...", f"nested more than {MAX_TOML_DEPTH} levels deep", source)
+    if isinstance(data, Mapping):
+        for key, value in data.items():
+            _check_plain_data(value, source, depth + 1, f"{where}.{key}" if where else str(key))
+    elif isinstance(data, list):
+        for value in data:
+            _check_plain_data(value, source, depth + 1, where)
+    elif isinstance(data, int) and not isinstance(data, bool) and not -INT64 <= data < INT64:
+        raise SettingsError(where, data, "a whole number beyond 64 bits (TOML 1.0 integers are 64-bit)", source)
 
 
 def parse_assignment(text: str) -> tuple[str, Any]:

@@ -9,31 +9,63 @@ from pathlib import Path
 
 from rtvoice.host.errors import HostError
 from rtvoice.host.link import DEFAULT_CLIENT_NAME, EngineLink
-from rtvoice.host.options import MPE_HELP
+from rtvoice.host.options import MPE_HELP, parse_mpe
+
+#: JACK limits client names to jack_client_name_size() - 1 = 63 bytes (JACK 1.9 / 2 headers, common practice);
+#: a ':' would split "client:port" names.
+MAX_CLIENT_NAME_BYTES = 63
 
 
 def register(sub: argparse._SubParsersAction) -> None:
-    from rtvoice.offline.commands import add_sound_options
+    from rtvoice.offline.commands import add_sound_options, output_path
 
     p = sub.add_parser("play", help="play in real time from MIDI (the terminal UI unless --headless)")
     p.add_argument("--headless", action="store_true", help="no UI: a status line on stderr once a second")
     add_sound_options(p)
-    p.add_argument("--audio-device", metavar="NAME|none", default=None,
+    p.add_argument("--audio-device", metavar="NAME|none", default=None, type=_not_blank("--audio-device"),
                    help="audio output (part of its name, or its number from 'rtvoice devices'); "
                         "none runs on a silent clock")
-    p.add_argument("--midi-in", metavar="NAME|all|virtual|none", default="all",
+    p.add_argument("--midi-in", metavar="NAME|all|virtual|none", default="all", type=_not_blank("--midi-in"),
                    help="all: every hardware input plus a virtual port (default); virtual: only the virtual "
                         "port; NAME: inputs whose name contains NAME")
-    p.add_argument("--record", metavar="OUT.wav", help="write what is played to a 32-bit float WAV file")
-    p.add_argument("--mpe", metavar="ZONES",
+    p.add_argument("--record", metavar="OUT.wav", type=output_path,
+                   help="write what is played to a 32-bit float WAV file")
+    p.add_argument("--mpe", metavar="ZONES", type=_mpe,
                    help=f"MPE zones without waiting for a configuration message: {MPE_HELP}")
-    p.add_argument("--client-name", default=DEFAULT_CLIENT_NAME, metavar="NAME",
+    p.add_argument("--client-name", default=DEFAULT_CLIENT_NAME, metavar="NAME", type=_client_name,
                    help=f"name of the audio and MIDI clients, e.g. on JACK (default {DEFAULT_CLIENT_NAME})")
     p.add_argument("--duration", type=_duration, metavar="SECONDS", help="stop after this long (headless)")
     p.set_defaults(func=run_play)
 
     d = sub.add_parser("devices", help="list audio outputs and MIDI inputs, and which are used by default")
     d.set_defaults(func=run_devices)
+
+
+def _not_blank(option: str):
+    def parse(text: str) -> str:
+        if not text.strip():
+            raise argparse.ArgumentTypeError(f"{option} needs a name, a number or a keyword, got an empty one")
+        return text
+
+    return parse
+
+
+def _client_name(text: str) -> str:
+    if not text.strip():
+        raise argparse.ArgumentTypeError("the client name must not be empty")
+    if len(text.encode("utf-8")) > MAX_CLIENT_NAME_BYTES:
+        raise argparse.ArgumentTypeError(f"the client name may be at most {MAX_CLIENT_NAME_BYTES} bytes long")
+    if ":" in text or any(ord(c) < 32 for c in text):
+        raise argparse.ArgumentTypeError(f"the client name {text!r} may not contain ':' or control characters")
+    return text
+
+
+def _mpe(text: str) -> str:
+    try:
+        parse_mpe(text)
+    except HostError as err:
+        raise argparse.ArgumentTypeError(str(err)) from None
+    return text
 
 
 def _duration(text: str) -> float:

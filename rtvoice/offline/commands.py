@@ -3,7 +3,10 @@
 from __future__ import annotations
 
 import argparse
+import math
+import os
 import sys
+import tempfile
 from pathlib import Path
 
 import numpy as np
@@ -16,11 +19,18 @@ from rtvoice.engine.presets import (
     read_preset_file,
 )
 from rtvoice.engine.settings import Settings, apply_assignments
-from rtvoice.offline.midifile import read_midi_events
-from rtvoice.offline.render import note_events, render_events, text_progress
-from rtvoice.offline.wav import write_wav
+from rtvoice.offline.midifile import MidiFileError, read_midi_events
+from rtvoice.offline.render import iter_blocks, longest_frames, note_events, text_progress
+from rtvoice.offline.wav import WavStreamWriter
 
 PROGRESS_ABOVE_S = 5.0
+#: A RIFF/WAVE file counts its data in a 32-bit field: at most 4 GiB of float32 samples, less the header.
+WAV_MAX_FRAMES = (2**32 - 1 - 64) // 4
+WRITE_EVERY_FRAMES = 1 << 16  # gather this much audio per write: fewer header rewrites
+
+
+class RenderError(MidiFileError):
+    """A render the command line refuses before starting (output place, length)."""
 
 
 def register(sub: argparse._SubParsersAction) -> None:
@@ -30,7 +40,7 @@ def register(sub: argparse._SubParsersAction) -> None:
     src.add_argument("--note", type=_midi_note, help="render one MIDI note (0-127) instead")
     r.add_argument("--velocity", type=_velocity, default=100, help="note-on velocity 1-127 (default 100)")
     r.add_argument("--seconds", type=_seconds, default=2.0, help="how long --note is held (default 2)")
-    r.add_argument("-o", "--output", required=True, help="WAV file to write (32-bit float)")
+    r.add_argument("-o", "--output", required=True, type=output_path, help="WAV file to write (32-bit float)")
     add_sound_options(r, block=2048)
     r.add_argument("--tail-cap", type=_seconds, default=30.0, help="longest ring-out after the last event, s")
     r.set_defaults(func=run_render)
@@ -48,7 +58,7 @@ def register(sub: argparse._SubParsersAction) -> None:
 
 def add_sound_options(parser: argparse.ArgumentParser, block: int = 256) -> None:
     """--preset, --set, --rate and --block, shared by the commands that make sound."""
-    parser.add_argument("--preset", help="preset name or path to a .toml file")
+    parser.add_argument("--preset", type=preset_arg, help="preset name or path to a .toml file")
     parser.add_argument("--set", action="append", default=[], metavar="KEY=VALUE",
                         help="change one parameter by its dotted name (repeatable)")
     parser.add_argument("--rate", type=_rate, default=48000, help="sample rate in Hz (default 48000)")
@@ -63,22 +73,89 @@ def settings_from_args(args: argparse.Namespace) -> Settings:
 def run_render(args: argparse.Namespace) -> int:
     settings = settings_from_args(args)
     out = Path(args.output)
-    if not out.parent.is_dir() and str(out.parent):
-        raise PresetError(f"{out.parent}: no such folder for the output file")
     if args.midifile:
         events = read_midi_events(args.midifile)
         if not events:
-            raise PresetError(f"{args.midifile}: the file holds no notes or controllers")
+            raise RenderError(f"{args.midifile}: the file holds no notes or controllers")
     else:
         events = note_events(args.note, args.velocity, args.seconds)
+    if longest_frames(events, args.rate, args.block, args.tail_cap) > WAV_MAX_FRAMES:
+        raise RenderError(f"{out}: the render could last longer than a WAV file holds at {args.rate} Hz "
+                          f"({WAV_MAX_FRAMES / args.rate / 3600:.1f} hours); lower --tail-cap or --rate")
     length_s = events[-1][0] if events else 0.0
     progress = text_progress(f"rendering {out.name}") if length_s > PROGRESS_ABOVE_S and sys.stderr.isatty() else None
-    audio = render_events(events, settings, args.rate, args.block, args.tail_cap, progress)
-    write_wav(out, audio.astype(np.float32), args.rate)
-    peak = float(np.max(np.abs(audio))) if audio.size else 0.0
-    peak_db = 20 * np.log10(peak) if peak > 0 else float("-inf")
-    print(f"wrote {out} ({audio.size / args.rate:.2f} s, peak {peak_db:.1f} dBFS)")
+    blocks = iter_blocks(events, settings, args.rate, args.block, args.tail_cap, progress)
+    frames, peak = write_blocks(out, blocks, args.rate)
+    peak_db = 20 * math.log10(peak) if peak > 0 else float("-inf")
+    print(f"wrote {out} ({frames / args.rate:.2f} s, peak {peak_db:.1f} dBFS)")
     return 0
+
+
+def write_blocks(out: Path, blocks, rate: int) -> tuple[int, float]:
+    """Stream ``blocks`` into a float32 WAV beside ``out``, then rename it into place; (frames, peak).
+
+    Memory stays a few blocks for any length, and ``out`` appears only when the
+    render is whole: a failure or Ctrl-C removes the temporary file.
+    """
+    folder = out.parent if str(out.parent) else Path(".")
+    fd, tmp = tempfile.mkstemp(prefix=f".{out.name}.", suffix=".tmp", dir=folder)
+    os.close(fd)
+    mask = os.umask(0)
+    os.umask(mask)
+    os.chmod(tmp, 0o666 & ~mask)  # mkstemp makes 0600; a rendered WAV is an ordinary file
+    frames, peak, pending, held = 0, 0.0, [], 0
+    try:
+        with WavStreamWriter(tmp, rate) as writer:
+            for block in blocks:
+                pending.append(block.astype(np.float32))
+                held += len(block)
+                if held >= WRITE_EVERY_FRAMES:
+                    chunk = np.concatenate(pending)
+                    writer.write(chunk)
+                    peak = max(peak, float(np.max(np.abs(chunk))))
+                    frames, pending, held = frames + held, [], 0
+            if pending:
+                chunk = np.concatenate(pending)
+                writer.write(chunk)
+                peak = max(peak, float(np.max(np.abs(chunk))))
+                frames += held
+        os.replace(tmp, out)
+    except OSError as err:
+        _remove(tmp)
+        raise RenderError(f"cannot write {out}: {err.strerror or err}") from None
+    except BaseException:
+        _remove(tmp)
+        raise
+    return frames, peak
+
+
+def _remove(path: str) -> None:
+    try:
+        os.unlink(path)
+    except OSError:
+        pass
+
+
+def preset_arg(text: str) -> str:
+    """An argparse type for --preset: a name or a path, not blank (blank would silently mean the defaults)."""
+    if not text.strip():
+        raise argparse.ArgumentTypeError("expected a preset name or a path to a .toml file, got an empty one")
+    return text
+
+
+def output_path(text: str) -> str:
+    """An argparse type for a file to write: a name in an existing folder, not a folder itself."""
+    if not text or not text.strip():
+        raise argparse.ArgumentTypeError("expected a file name, got an empty one")
+    if "\0" in text:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a usable file name")
+    path = Path(text)
+    if path.is_dir() or text.endswith(("/", os.sep)):
+        raise argparse.ArgumentTypeError(f"{text} is a folder: give a file name inside it")
+    folder = path.parent if str(path.parent) else Path(".")
+    if not folder.is_dir():
+        raise argparse.ArgumentTypeError(f"{folder}: no such folder for the output file")
+    return text
 
 
 def run_list(args: argparse.Namespace) -> int:

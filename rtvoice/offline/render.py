@@ -1,9 +1,9 @@
-"""Render timed MIDI events through the engine into a buffer of samples."""
+"""Render timed MIDI events through the engine into samples, whole or block by block."""
 
 from __future__ import annotations
 
 import sys
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Iterator, Sequence
 
 import numpy as np
 
@@ -18,18 +18,27 @@ def note_events(note: int, velocity: int, seconds: float, channel: int = 0) -> l
     return [(0.0, 0x90 | channel, note, velocity), (float(seconds), 0x80 | channel, note, 0)]
 
 
-def render_events(
+def longest_frames(events: Sequence[tuple[float, int, int, int]], sample_rate_hz: int, block_frames: int,
+                   tail_cap_s: float) -> int:
+    """An upper bound on the frames :func:`iter_blocks` yields (last event, tail cap, one block)."""
+    last_s = max((t for t, *_ in events), default=0.0)
+    return round(last_s * sample_rate_hz) + int(tail_cap_s * sample_rate_hz) + 2 * block_frames
+
+
+def iter_blocks(
     events: Sequence[tuple[float, int, int, int]],
     settings: Settings,
     sample_rate_hz: int = 48000,
     block_frames: int = 256,
     tail_cap_s: float = DEFAULT_TAIL_CAP_S,
     progress: Callable[[float], None] | None = None,
-) -> np.ndarray:
-    """Samples of ``events`` (time_s, status, data1, data2) played through a new engine.
+) -> Iterator[np.ndarray]:
+    """Blocks of ``events`` (time_s, status, data1, data2) played through a new engine.
 
     Each event lands on its own sample. After the last event the tail rings until
-    every voice has retired (below -100 dBFS) or ``tail_cap_s`` has passed.
+    every voice has retired (below -100 dBFS) or ``tail_cap_s`` has passed. Each
+    yielded block is a view of the engine's buffer, valid until the next one: memory
+    stays one block however long the piece is.
     """
     engine = Engine(settings, sample_rate_hz, block_frames)
     fs, n = engine.fs, engine.block
@@ -37,8 +46,7 @@ def render_events(
     stamps = np.array([round(t * fs) for t, *_ in ordered], dtype=np.int64)
     last = int(stamps[-1]) if len(stamps) else 0
     cap_end = last + int(tail_cap_s * fs)
-    blocks: list[np.ndarray] = []
-    i, start = 0, 0
+    i, start, count = 0, 0, 0
     total_guess = max(last + int(2 * fs), 1)
     while True:
         end = start + n
@@ -47,14 +55,27 @@ def render_events(
             _, status, d1, d2 = ordered[i]
             batch.append((int(stamps[i] - start), status, d1, d2))
             i += 1
-        blocks.append(engine.render(batch).copy())
+        yield engine.render(batch)
         start = end
-        if progress and len(blocks) % 200 == 0:
+        count += 1
+        if progress and count % 200 == 0:
             progress(min(start / total_guess, 0.99))
         if i >= len(ordered) and (engine.pool.n_active == 0 or start >= cap_end):
             break
     if progress:
         progress(1.0)
+
+
+def render_events(
+    events: Sequence[tuple[float, int, int, int]],
+    settings: Settings,
+    sample_rate_hz: int = 48000,
+    block_frames: int = 256,
+    tail_cap_s: float = DEFAULT_TAIL_CAP_S,
+    progress: Callable[[float], None] | None = None,
+) -> np.ndarray:
+    """Samples of ``events`` played through a new engine, as one array (see :func:`iter_blocks`)."""
+    blocks = [b.copy() for b in iter_blocks(events, settings, sample_rate_hz, block_frames, tail_cap_s, progress)]
     return np.concatenate(blocks) if blocks else np.zeros(0)
 
 

@@ -9,7 +9,7 @@ import time
 from pathlib import Path
 
 from rtvoice.engine.renderer import Engine
-from rtvoice.offline.commands import add_sound_options, settings_from_args
+from rtvoice.offline.commands import add_sound_options, output_path, settings_from_args
 from rtvoice.offline.render import text_progress
 from rtvoice.survey.descriptors import DEFAULT_MISSING_BELOW_DB
 from rtvoice.survey.grid import (
@@ -83,8 +83,8 @@ def register(sub: argparse._SubParsersAction) -> None:
         metavar="DB",
         help=f"a harmonic this far below the strongest is missing (default {DEFAULT_MISSING_BELOW_DB:g})",
     )
-    p.add_argument("-o", "--output", required=True, metavar="MAP.csv", help="CSV file to write")
-    p.add_argument("--plot", metavar="MAP.png", help="also draw a heat map (needs the 'plot' extra)")
+    p.add_argument("-o", "--output", required=True, metavar="MAP.csv", type=output_path, help="CSV file to write")
+    p.add_argument("--plot", metavar="MAP.png", type=output_path, help="also draw a heat map (needs the 'plot' extra)")
     p.add_argument(
         "--plot-value",
         choices=DESCRIPTOR_FIELDS,
@@ -98,7 +98,7 @@ def register(sub: argparse._SubParsersAction) -> None:
         metavar=("A", "B"),
         help="two placements PICKUP[,PLUCK[,WIDTH]] whose harmonic levels are listed",
     )
-    p.add_argument("--compare-plot", metavar="BARS.png", help="bar chart of the --compare placements")
+    p.add_argument("--compare-plot", metavar="BARS.png", type=output_path, help="bar chart of the --compare placements")
     p.add_argument("--verify", action="store_true", help="render sample points with the engine and compare")
     p.add_argument(
         "--verify-points",
