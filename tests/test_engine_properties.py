@@ -95,3 +95,26 @@ def test_cached_pickup_sums_equal_the_direct_formula_through_any_sequence_of_cha
         got = sums.update(pickups)
         for a, b in zip(got, spatial_sums(k, pickups), strict=True):
             np.testing.assert_allclose(a, b, rtol=0, atol=1e-12)
+
+
+def test_no_subnormal_numbers_build_up_in_a_long_note():
+    # High modes die long before their voice; their amplitudes and powers must not sink into
+    # IEEE 754 subnormal numbers (below 2.2e-308 in double, 1.2e-38 in single precision), which
+    # x86 arithmetic handles about a hundred times slower (common practice). Checked after every
+    # block, for a low note with quickly dying high modes and a high note whose modes above the
+    # cut-off decay fastest of all.
+    s = Settings.defaults().with_values({"string.t60_low": 30.0, "string.t60_high": 0.08, "string.modes": 128})
+    for block in (128, 2048):
+        engine = Engine(s, 48000, block)
+        engine.render([(0, 0x90, 28, 127), (0, 0x90, 100, 127), (0, 0xB0, 64, 127)])
+        pool = engine.pool
+        for _ in range(int(6 * 48000 / block)):
+            engine.render()
+            n = pool.n_active
+            for name, x, tiny in (("s", pool.s[:n], np.finfo(float).tiny),
+                                  ("p_block", pool.p_block[:n], np.finfo(float).tiny),
+                                  ("A", pool.A_rows[:n], np.finfo(np.float32).tiny),
+                                  ("B", pool.B_t[:, :n], np.finfo(np.float32).tiny)):
+                x = np.abs(x.view(x.real.dtype))
+                assert not np.any((x > 0) & (x < tiny)), (block, name)
+        assert pool.n_active >= 1  # the low note still rings

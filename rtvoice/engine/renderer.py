@@ -608,6 +608,7 @@ class Engine:
     def _retire(self) -> None:
         pool = self.pool
         if pool.n_active and (self.stats.blocks % self._retire_every == 0 or self._pending_rebuild is not None):
+            pool.clear_tiny_modes()
             bound = pool.bound() * OUTPUT_SCALE * max(self._gain, 1.0)
             dead = np.flatnonzero(~(bound >= RETIRE_LEVEL))  # catches NaN too
             for v in dead[::-1]:
