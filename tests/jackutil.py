@@ -438,3 +438,370 @@ def portaudio_jack_output_device() -> int:
     raise JackError(
         "PortAudio has no JACK host API (was sounddevice imported before the server started?)"
     )
+
+
+# -- a JACK MIDI source that writes any bytes ---------------------------------------------------
+
+#: The JACK MIDI port type (jack/types.h JACK_DEFAULT_MIDI_TYPE).
+MIDI_PORT_TYPE = b"8 bit raw midi"
+
+
+class RawMidiSender:
+    """An external JACK client ``name`` with one MIDI output ``name:out`` that sends any bytes.
+
+    python-rtmidi refuses messages longer than three bytes that do not start with F0, so a
+    sender that breaks the rules (random bytes, several messages or real-time bytes in one
+    event) needs a client of its own. It runs in a subprocess (this file run as a script), a
+    libjack client through ctypes whose process callback writes the queued events at the
+    start of the next period, so a busy test process cannot delay it. Each :meth:`send` is one
+    JACK MIDI event; :meth:`flush` waits until everything sent so far went out. Events JACK
+    has no room for in one period's buffer (larger than ``max_event_bytes``) are skipped and
+    counted in :attr:`too_big`.
+    """
+
+    def __init__(self, name: str, *, timeout_s: float = 10.0, env: dict[str, str] | None = None,
+                 paused: bool = False) -> None:
+        """Start the client; with ``paused`` only the process starts, and :meth:`open` then
+        opens the client within milliseconds (to plug a device back at once)."""
+        import sys
+
+        self.name = name
+        self.port = f"{name}:out"
+        self.too_big = 0
+        self.max_event_bytes = 0
+        self._timeout_s = timeout_s
+        self.process = subprocess.Popen(
+            [sys.executable, os.path.abspath(__file__), "raw-midi-sender", name],
+            env=env or JACK_ENV, stdin=subprocess.PIPE, stdout=subprocess.PIPE, stderr=subprocess.DEVNULL,
+            text=True, bufsize=1,
+        )
+        self._sync = 0
+        if self._reply(timeout_s) != "waiting":
+            self.kill()
+            raise JackError(f"raw MIDI sender {name} did not start")
+        if not paused:
+            self.open()
+
+    def open(self) -> None:
+        """Open the JACK client (and its port) of a sender started ``paused``."""
+        assert self.process.stdin is not None
+        self.process.stdin.write("open\n")
+        self.process.stdin.flush()
+        line = self._reply(self._timeout_s)
+        if not line.startswith("ready"):
+            self.close()
+            raise JackError(f"raw MIDI sender {self.name} did not open its client: {line!r}")
+        self.max_event_bytes = int(line.split()[1])
+
+    def _reply(self, timeout_s: float) -> str:
+        import select
+
+        assert self.process.stdout is not None
+        ready, _, _ = select.select([self.process.stdout], [], [], timeout_s)
+        if not ready:
+            raise JackError(f"raw MIDI sender {self.name} did not answer within {timeout_s} s")
+        return self.process.stdout.readline().strip()
+
+    def send(self, data: Sequence[int] | bytes) -> None:
+        """Queue one JACK MIDI event holding exactly ``data`` (any bytes, at least one)."""
+        if len(data) == 0:
+            raise ValueError("a JACK MIDI event holds at least one byte")
+        assert self.process.stdin is not None
+        self.process.stdin.write(bytes(data).hex() + "\n")
+
+    def flush(self, timeout_s: float = 10.0) -> None:
+        """Wait until every event sent so far has been written to JACK."""
+        assert self.process.stdin is not None
+        self._sync += 1
+        self.process.stdin.write(f"sync {self._sync}\n")
+        self.process.stdin.flush()
+        line = self._reply(timeout_s)
+        if line.split()[:2] != ["done", str(self._sync)]:
+            raise JackError(f"raw MIDI sender {self.name}: unexpected reply {line!r}")
+        self.too_big = int(line.split()[2])
+
+    def close(self) -> None:
+        """Close the client: its port disappears from the server (an unplugged device)."""
+        if self.process.poll() is None and self.process.stdin is not None and not self.process.stdin.closed:
+            try:
+                assert self.process.stdin is not None
+                self.process.stdin.write("quit\n")
+                self.process.stdin.flush()
+                self.process.wait(5)
+            except (OSError, subprocess.TimeoutExpired):
+                self.process.kill()
+                self.process.wait(5)
+        self._close_pipes()
+
+    def _close_pipes(self) -> None:
+        for pipe in (self.process.stdin, self.process.stdout):
+            if pipe is not None and not pipe.closed:
+                try:
+                    pipe.close()
+                except OSError:
+                    pass
+
+    def unplug(self, timeout_s: float = 5.0) -> None:
+        """Close the client and return as soon as its port is gone (the process ends after)."""
+        assert self.process.stdin is not None
+        self.process.stdin.write("quit\n")
+        self.process.stdin.flush()
+        if self._reply(timeout_s) != "closed":
+            raise JackError(f"{self.port} did not close")
+
+    def kill(self) -> None:
+        """End the sender process at once (its server died: closing the client could wait)."""
+        if self.process.poll() is None:
+            self.process.kill()
+        self.process.wait(5)
+        self._close_pipes()
+
+    def __enter__(self) -> RawMidiSender:
+        return self
+
+    def __exit__(self, *_exc: object) -> None:
+        self.close()
+
+
+def _raw_midi_sender_main(name: str) -> int:
+    """The sender subprocess: one JACK client, one MIDI output, events as hex lines on stdin."""
+    import collections
+    import ctypes
+    import ctypes.util
+    import sys
+    import threading
+
+    lib = ctypes.CDLL(ctypes.util.find_library("jack") or "libjack.so.0")
+    lib.jack_client_open.restype = ctypes.c_void_p
+    lib.jack_client_open.argtypes = [ctypes.c_char_p, ctypes.c_int, ctypes.c_void_p]
+    lib.jack_port_register.restype = ctypes.c_void_p
+    lib.jack_port_register.argtypes = [ctypes.c_void_p, ctypes.c_char_p, ctypes.c_char_p,
+                                       ctypes.c_ulong, ctypes.c_ulong]
+    lib.jack_port_get_buffer.restype = ctypes.c_void_p
+    lib.jack_port_get_buffer.argtypes = [ctypes.c_void_p, ctypes.c_uint32]
+    lib.jack_midi_clear_buffer.argtypes = [ctypes.c_void_p]
+    lib.jack_midi_max_event_size.restype = ctypes.c_size_t
+    lib.jack_midi_max_event_size.argtypes = [ctypes.c_void_p]
+    lib.jack_midi_event_write.restype = ctypes.c_int
+    lib.jack_midi_event_write.argtypes = [ctypes.c_void_p, ctypes.c_uint32, ctypes.c_char_p, ctypes.c_size_t]
+    lib.jack_set_process_callback.argtypes = [ctypes.c_void_p, ctypes.c_void_p, ctypes.c_void_p]
+    lib.jack_activate.argtypes = [ctypes.c_void_p]
+    lib.jack_deactivate.argtypes = [ctypes.c_void_p]
+    lib.jack_client_close.argtypes = [ctypes.c_void_p]
+    print("waiting", flush=True)
+    if sys.stdin.readline().strip() != "open":
+        return 0
+    client = lib.jack_client_open(name.encode(), 0x01, None)  # JackNoStartServer
+    if not client:
+        print("error cannot open a JACK client", flush=True)
+        return 1
+    port = lib.jack_port_register(client, b"out", MIDI_PORT_TYPE, 0x2, 0)  # JackPortIsOutput
+    queue: collections.deque = collections.deque()
+    state = {"too_big": 0, "max": 0, "written": 0}
+    written = threading.Condition()
+
+    @ctypes.CFUNCTYPE(ctypes.c_int, ctypes.c_uint32, ctypes.c_void_p)
+    def process(nframes: int, _arg: int) -> int:
+        buf = lib.jack_port_get_buffer(port, nframes)
+        lib.jack_midi_clear_buffer(buf)
+        state["max"] = int(lib.jack_midi_max_event_size(buf))
+        done = 0
+        while queue:
+            data = queue[0]
+            if isinstance(data, int):  # a sync mark
+                queue.popleft()
+                with written:
+                    state["written"] = data
+                    written.notify_all()
+                continue
+            if len(data) > state["max"] and done == 0:
+                queue.popleft()  # larger than an empty period buffer: JACK can never carry it
+                state["too_big"] += 1
+                continue
+            if lib.jack_midi_event_write(buf, 0, data, len(data)) != 0:
+                break  # this period's buffer is full: the rest goes in the next one
+            queue.popleft()
+            done += 1
+        return 0
+
+    lib.jack_set_process_callback(client, process, None)
+    if lib.jack_activate(client) != 0:
+        print("error cannot activate the JACK client", flush=True)
+        return 1
+    time.sleep(0.05)
+    print(f"ready {state['max']}", flush=True)
+    for line in sys.stdin:
+        word = line.split()
+        if not word:
+            continue
+        if word[0] == "quit":
+            break
+        if word[0] == "sync":
+            mark = int(word[1])
+            queue.append(mark)
+            with written:
+                written.wait_for(lambda m=mark: state["written"] >= m, timeout=30.0)
+            print(f"done {mark} {state['too_big']}", flush=True)
+            continue
+        queue.append(bytes.fromhex(word[0]))
+    lib.jack_deactivate(client)
+    lib.jack_client_close(client)
+    print("closed", flush=True)
+    return 0
+
+
+if __name__ == "__main__":
+    import sys
+
+    if len(sys.argv) == 3 and sys.argv[1] == "raw-midi-sender":
+        sys.exit(_raw_midi_sender_main(sys.argv[2]))
+    sys.exit(f"usage: {sys.argv[0]} raw-midi-sender CLIENT_NAME")
+
+
+# -- rtvoice play --headless as a subprocess ---------------------------------------------------
+
+#: One status line of ``rtvoice play --headless`` (rtvoice/host/headless.py status_line).
+STATUS_RE = re.compile(
+    r"^voices\s+(?P<voices>\d+) \| load\s+(?P<load_median>[\d.]+)% median\s+(?P<load_p99>[\d.]+)% p99"
+    r" \| xruns (?P<xruns>\d+) \| peak\s+(?P<peak_dbfs>-?[\d.]+|-inf) dBFS \| limiter\s+(?P<limiter_db>[\d.]+) dB"
+    r" \| midi (?P<midi>\d+)(?: \| dropped (?P<dropped>\d+))?(?: \| late (?P<late>\d+))?"
+)
+
+
+@dataclass(frozen=True)
+class Status:
+    """One parsed status line: load as a share of the block period (0.5 = 50 %)."""
+
+    voices: int
+    load_median: float
+    load_p99: float
+    xruns: int
+    peak_dbfs: float
+    limiter_db: float
+    midi: int
+    dropped: int
+    late: int
+    """Callbacks that took longer than the block period (the host's own overruns)."""
+
+
+def parse_status(line: str) -> Status | None:
+    match = STATUS_RE.match(line.strip())
+    if match is None:
+        return None
+    g = match.groupdict()
+    return Status(int(g["voices"]), float(g["load_median"]) / 100, float(g["load_p99"]) / 100,
+                  int(g["xruns"]), float("-inf") if g["peak_dbfs"] == "-inf" else float(g["peak_dbfs"]),
+                  float(g["limiter_db"]), int(g["midi"]), int(g["dropped"] or 0), int(g["late"] or 0))
+
+
+class HeadlessHost:
+    """``rtvoice play --headless --midi-in virtual`` under the JACK client name ``name``.
+
+    Its stderr goes to ``log_path``; :meth:`statuses` parses the status lines printed once a
+    second. With ``record`` the host writes what it played to that WAV (``--record``), whose
+    header is valid after every write, so :meth:`recorded` can read it while the host runs.
+    """
+
+    START_TIMEOUT_S = 40.0  # the host imports numpy and scipy: slow on a busy 2-core machine
+
+    def __init__(self, name: str, log_path: Path, *, rate: int, block: int, extra: Sequence[str] = (),
+                 record: Path | None = None, midi_in: str = "virtual",
+                 env: dict[str, str] | None = None) -> None:
+        import sys
+
+        self.name = name
+        self.log_path = Path(log_path)
+        self.record_path = record
+        self.rate = rate
+        self.block = block
+        self.out_port = f"{name}:out_0"
+        self.midi_port = f"{name}-midi:in"
+        args = [sys.executable, "-m", "rtvoice.cli", "play", "--headless", "--midi-in", midi_in,
+                "--client-name", name, "--rate", str(rate), "--block", str(block), *extra]
+        if record is not None:
+            args += ["--record", str(record)]
+        self._log = open(self.log_path, "w")  # noqa: SIM115 - closed in stop()
+        self.process = subprocess.Popen(args, stdin=subprocess.DEVNULL, stdout=self._log,
+                                        stderr=subprocess.STDOUT, env=env or JACK_ENV,
+                                        start_new_session=True)
+
+    def log(self) -> str:
+        return self.log_path.read_text(errors="replace")
+
+    def wait_for_log(self, text: str, timeout_s: float) -> bool:
+        """Wait until ``text`` is in the log; False when it was not within ``timeout_s``."""
+        deadline = time.monotonic() + timeout_s
+        while text not in self.log():
+            if time.monotonic() > deadline or self.process.poll() is not None:
+                return text in self.log()
+            time.sleep(0.05)
+        return True
+
+    def wait_ready(self, midi: bool = True) -> HeadlessHost:
+        if not self.wait_for_log("rtvoice: MIDI in:", self.START_TIMEOUT_S):
+            self.stop()
+            raise JackError(f"host {self.name} did not start: {self.log()[-2000:]}")
+        wait_for_ports(f"^{re.escape(self.out_port)}$", timeout_s=10)
+        if midi:
+            wait_for_ports(f"^{re.escape(self.midi_port)}$", timeout_s=10)
+        return self
+
+    def statuses(self) -> list[Status]:
+        return [s for s in map(parse_status, self.log().splitlines()) if s is not None]
+
+    def next_status(self, timeout_s: float = 5.0) -> Status:
+        """Wait for a status line printed after this call and return it."""
+        count = len(self.statuses())
+        deadline = time.monotonic() + timeout_s
+        while time.monotonic() < deadline:
+            found = self.statuses()
+            if len(found) > count:
+                return found[-1]
+            time.sleep(0.05)
+        raise JackError(f"host {self.name} printed no status line within {timeout_s} s: {self.log()[-1000:]}")
+
+    def recorded(self) -> np.ndarray:
+        """Everything ``--record`` has written so far (float32, mono)."""
+        from rtvoice.offline.wav import read_wav as read_record
+
+        assert self.record_path is not None
+        samples, rate = read_record(self.record_path)
+        assert rate == self.rate
+        return np.asarray(samples, dtype=np.float64).reshape(-1)
+
+    def running(self) -> bool:
+        return self.process.poll() is None
+
+    def stop(self, timeout_s: float = 15.0) -> int:
+        """SIGTERM, then wait (SIGKILL after ``timeout_s``); returns the exit status."""
+        import signal
+
+        if self.process.poll() is None:
+            self.process.send_signal(signal.SIGTERM)
+            try:
+                self.process.wait(timeout_s)
+            except subprocess.TimeoutExpired:
+                self.process.kill()
+                self.process.wait(5)
+        self._log.close()
+        return self.process.returncode
+
+
+class RtmidiSender:
+    """A python-rtmidi JACK MIDI output ``name:out`` (rtmidi's own C++ client thread sends)."""
+
+    def __init__(self, name: str) -> None:
+        import rtmidi
+
+        self.name = name
+        self.port = f"{name}:out"
+        self.out = rtmidi.MidiOut(rtmidi.API_UNIX_JACK, name=name)
+        self.out.open_virtual_port("out")
+        wait_for_ports(f"^{re.escape(self.port)}$", timeout_s=10)
+        self.send = self.out.send_message
+
+    def close(self) -> None:
+        if self.out is not None:
+            self.out.close_port()
+            self.out.delete()
+            self.out = None

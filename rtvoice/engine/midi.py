@@ -99,3 +99,57 @@ class ChannelState:
             self.configure_mpe(channel, msb)
             return "mpe"
         return None
+
+
+# -- raw bytes to channel messages -------------------------------------------------------
+SYSEX_START, SYSEX_END, FIRST_REAL_TIME = 0xF0, 0xF7, 0xF8
+
+
+def data_length(status: int) -> int:
+    """Data bytes of a channel message: one for program change and channel pressure, else two."""
+    return 1 if status & 0xF0 in (PROGRAM_CHANGE, CHANNEL_PRESSURE) else 2
+
+
+def channel_messages(data) -> list[tuple[int, int, int]]:
+    """The channel messages in one chunk of raw MIDI bytes, as (status, data1, data2).
+
+    ``data`` is read as a MIDI 1.0 byte stream (MIDI 1.0 Detailed Specification): real-time
+    bytes F8..FF may sit anywhere, even inside another message, and are skipped; running status
+    lets a channel message omit a repeated status byte; a system exclusive message F0 .. F7 ends
+    at F7 or at any other status byte but a real-time one; system common messages (and the
+    undefined F4, F5) cancel running status; data bytes with no status before them and
+    messages cut short are dropped. A one-data-byte message reports data2 = 0. Each chunk
+    starts afresh (a JACK MIDI event holds whole messages), so nothing carries over between
+    chunks. Never raises for a sequence of ints 0..255 (others raise ValueError, as bytes() does).
+    """
+    n = len(data)
+    # The usual case, one well-formed message, without the loop below.
+    if n == 3:
+        s, a, b = data[0], data[1], data[2]
+        if 0x80 <= s < 0xF0 and data_length(s) == 2 and 0 <= a < 0x80 and 0 <= b < 0x80:
+            return [(s, a, b)]
+    elif n == 2:
+        s, a = data[0], data[1]
+        if 0xC0 <= s < 0xE0 and 0 <= a < 0x80:
+            return [(s, a, 0)]
+    out: list[tuple[int, int, int]] = []
+    running = 0  # the channel status in force, 0 for none
+    first = -1  # the first data byte of a two-byte message in progress, -1 for none
+    in_sysex = False
+    for byte in bytes(data):
+        if byte >= FIRST_REAL_TIME:
+            continue  # real-time: may appear anywhere, carries nothing for the voices
+        if byte >= 0x80:  # any other status byte ends a sysex and a message cut short
+            in_sysex, first = byte == SYSEX_START, -1
+            running = byte if byte < 0xF0 else 0  # system common and sysex cancel running status
+            continue
+        if in_sysex or not running:
+            continue  # sysex payload, a system common message's data, or a stray data byte
+        if data_length(running) == 1:
+            out.append((running, byte, 0))
+        elif first < 0:
+            first = byte
+        else:
+            out.append((running, first, byte))
+            first = -1
+    return out

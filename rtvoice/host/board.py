@@ -21,7 +21,7 @@ SILENT_DB = -120.0
 FIELDS = (
     "voices", "load_median", "load_p99", "xruns", "peak_dbfs", "gain_reduction_db",
     "midi_events", "note", "f0_hz", "n_modes", "spectrum_bin_hz", "heartbeat_s", "blocks",
-    "sample_rate_hz", "block_frames", "velocity",
+    "sample_rate_hz", "block_frames", "velocity", "notes_dropped", "late",
 )
 _N_FIELDS = len(FIELDS)
 _OFFSETS = {"fields": 8}

@@ -33,6 +33,7 @@ from rtvoice.host.errors import HostError  # noqa: E402
 from rtvoice.host.meters import CallbackMeter, Publisher, VoiceStage  # noqa: E402
 from rtvoice.host.midi_ports import MidiInputs  # noqa: E402
 from rtvoice.host.options import parse_mpe  # noqa: E402
+from rtvoice.host.overload import NoteOnGuard  # noqa: E402
 from rtvoice.host.recorder import Recorder  # noqa: E402
 from rtvoice.host.ring import SampleRing  # noqa: E402
 from rtvoice.host.route import AudioRoute  # noqa: E402
@@ -139,7 +140,8 @@ class EngineHost:
         self.board = Board.attach(config["board"])
         self.clock = BlockClock(self.block, self.rate)
         self.ring = SampleRing(int(RING_S * self.rate))
-        self.recorder = Recorder(config["record"], self.rate, self.ring) if config.get("record") else None
+        self.recorder = Recorder(config["record"], self.rate, self.ring, append=bool(config.get("record_append"))) \
+            if config.get("record") else None
         self.midi = MidiInputs(config.get("midi_in") or "all", config.get("client_name") or "rtvoice")
         self.route = AudioRoute(config.get("audio_device"), self.rate, self.block,
                                 config.get("client_name") or "rtvoice", self.process)
@@ -164,9 +166,11 @@ class EngineHost:
         self._ports_changed = False
         self._rec_reported = False
         self.load = CallbackMeter(self.period_s)
+        self.guard = NoteOnGuard(self.period_s)
         self.voice_stage = VoiceStage()
         self.publisher = Publisher(self.board, self.ring, self.rate)
         self.xruns = 0
+        self.late = 0  # callbacks that took longer than the block period
         self.midi_events = 0
         self.blocks = 0
         self._peak_hold = 0.0
@@ -231,6 +235,8 @@ class EngineHost:
                 self._outbox.append({"type": "error", "text": text, "trace": traceback.format_exc()})
         t_exit = time.perf_counter()
         self._last_end, self._last_took = t_exit, t_exit - t_enter
+        if t_exit - t_enter > self.period_s:
+            self.late += 1  # this callback alone overran its period
         self.load.add(t_exit - t_enter)
 
     def _process(self, out, underflow: bool) -> None:
@@ -259,8 +265,11 @@ class EngineHost:
                 held.append((pos - n, status, d1, d2))
         if len(events) > 1:
             events.sort(key=itemgetter(0))
+        self.guard.admit(events)  # a flood of note-ons must not stall the callback
         self.midi_events += len(events)
+        t_render = time.perf_counter()
         y = self.engine.render(events)
+        self.guard.learn(time.perf_counter() - t_render)
         self.router.after_block(now)
         self._apply_gain(y)
         if out is not None:
@@ -347,6 +356,7 @@ class EngineHost:
                 self._wait_for_gap()
                 self._publish()
                 self._forward()
+                self.midi.resync()
             if now >= next_health:
                 next_health = now + HEALTH_EVERY_S
                 self._check_audio(now)
@@ -422,8 +432,10 @@ class EngineHost:
         gr, self._gr_hold = self._gr_hold, 0.0
         med, p99 = self.load.recent()
         self.publisher.publish({
-            "load_median": med, "load_p99": p99, "xruns": self.xruns, "peak": peak, "gain_reduction_db": gr,
-            "midi_events": self.midi_events, "heartbeat_s": time.monotonic(), "blocks": self.blocks,
+            "load_median": med, "load_p99": p99, "xruns": self.xruns, "late": self.late, "peak": peak,
+            "gain_reduction_db": gr,
+            "midi_events": self.midi_events, "notes_dropped": self.guard.dropped,
+            "heartbeat_s": time.monotonic(), "blocks": self.blocks,
             "block_frames": self.block,
         }, self.voice_stage.current(), self.engine.pool.modes)
 
@@ -457,9 +469,10 @@ class EngineHost:
             self.recorder.stop()
         elapsed = time.monotonic() - self.started_at
         summary = {
-            "seconds": elapsed, "blocks": self.blocks, "xruns": self.xruns,
+            "seconds": elapsed, "blocks": self.blocks, "xruns": self.xruns, "late": self.late,
             "load_median": self.load.run_percentile(0.5), "load_p99": self.load.run_percentile(0.99),
-            "midi_events": self.midi_events, "clock_resyncs": self.clock.resyncs, "rt_priority": self.rt_priority,
+            "midi_events": self.midi_events, "notes_dropped": self.guard.dropped,
+            "clock_resyncs": self.clock.resyncs, "rt_priority": self.rt_priority,
         }
         if self.recorder is not None:
             summary.update(record=str(self.recorder.path), record_seconds=self.recorder.seconds,

@@ -14,7 +14,9 @@ STATUS_EVERY_S = 1.0
 def status_line(s: Snapshot) -> str:
     peak = f"{s.peak_dbfs:6.1f} dBFS" if s.peak_dbfs > -120 else "  -inf dBFS"
     return (f"voices {s.voices:3d} | load {100 * s.load_median:4.1f}% median {100 * s.load_p99:5.1f}% p99"
-            f" | xruns {s.xruns} | peak {peak} | limiter {s.gain_reduction_db:4.1f} dB | midi {s.midi_events}")
+            f" | xruns {s.xruns} | peak {peak} | limiter {s.gain_reduction_db:4.1f} dB | midi {s.midi_events}"
+            + (f" | dropped {s.notes_dropped}" if s.notes_dropped else "")
+            + (f" | late {s.late}" if s.late else ""))
 
 
 SAFETY_LINE = ("listening safety: loud sound damages hearing. Turn your amplifier or headphones down "
@@ -76,7 +78,9 @@ def run_headless(link: EngineLink, duration_s: float | None = None, out=sys.stde
     if summary:
         out.write(f"rtvoice: stopped ({stop['why'] or 'engine'}) after {summary['seconds']:.1f} s: "
                   f"load {100 * summary['load_median']:.1f}% median, {100 * summary['load_p99']:.1f}% p99, "
-                  f"xruns {summary['xruns']}, midi events {summary['midi_events']}\n")
+                  f"xruns {summary['xruns']}, midi events {summary['midi_events']}"
+                  + (f", note-ons dropped {summary['notes_dropped']}" if summary.get("notes_dropped") else "")
+                  + "\n")
         if "record" in summary:
             lost = f", {summary['record_lost']} samples lost" if summary["record_lost"] else ""
             out.write(f"rtvoice: recorded {summary['record_seconds']:.1f} s to {summary['record']}{lost}\n")

@@ -38,6 +38,11 @@ def _load():
         lib.jack_client_close.argtypes = [ctypes.c_void_p]
         lib.jack_get_sample_rate.argtypes = [ctypes.c_void_p]
         lib.jack_get_buffer_size.argtypes = [ctypes.c_void_p]
+        lib.jack_port_by_name.restype = ctypes.c_void_p
+        lib.jack_port_by_name.argtypes = [ctypes.c_void_p, ctypes.c_char_p]
+        lib.jack_connect.argtypes = [ctypes.c_void_p, ctypes.c_char_p, ctypes.c_char_p]
+        lib.jack_port_get_all_connections.restype = ctypes.POINTER(ctypes.c_char_p)
+        lib.jack_port_get_all_connections.argtypes = [ctypes.c_void_p, ctypes.c_void_p]
         callback = ctypes.CFUNCTYPE(None, ctypes.c_char_p)
         _silence = callback(lambda _msg: None)  # keep a reference: libjack holds the pointer
         lib.jack_set_error_function(_silence)
@@ -74,7 +79,31 @@ def ports(kind: bytes = MIDI_TYPE, flags: int = 0, pattern: str | None = None) -
     client = _connect()
     if client is None:
         return []
-    arr = _lib.jack_get_ports(client, pattern.encode() if pattern else None, kind, flags)
+    return _names(_lib.jack_get_ports(client, pattern.encode() if pattern else None, kind, flags))
+
+
+def connections(name: str) -> list[str] | None:
+    """Full names of the ports connected to the port ``name``; None when there is no such port
+    (or no server). A port that went away and came back under the same name has lost them."""
+    client = _connect()
+    if client is None:
+        return None
+    port = _lib.jack_port_by_name(client, name.encode())
+    if not port:
+        return None
+    return _names(_lib.jack_port_get_all_connections(client, port))
+
+
+def connect(source: str, destination: str) -> bool:
+    """Connect two ports by full name; True when they are connected (now or already)."""
+    client = _connect()
+    if client is None:
+        return False
+    _lib.jack_connect(client, source.encode(), destination.encode())  # EEXIST when already connected
+    return source in (connections(destination) or [])
+
+
+def _names(arr) -> list[str]:
     if not arr:
         return []
     names = []

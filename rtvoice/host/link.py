@@ -41,9 +41,11 @@ class Snapshot:
     load_median: float = 0.0  # callback time as a share of the block period
     load_p99: float = 0.0
     xruns: int = 0
+    late: int = 0  # callbacks that overran the block period (the engine's own share of xruns)
     peak_dbfs: float = SILENT_DB
     gain_reduction_db: float = 0.0
     midi_events: int = 0  # running count of MIDI events handled
+    notes_dropped: int = 0  # note-ons over the per-block budget, dropped (a flood of them)
     note: int = -1  # MIDI note of the loudest voice, -1 for none
     velocity: int = 0  # its note-on velocity, 0 for none
     f0_hz: float = 0.0
@@ -85,6 +87,7 @@ class EngineLink:
         self._respawning = False
         self._restarted = False
         self.ready_info: dict = {}  # what the engine reported when it started
+        self._spawned = False  # an engine was started before (a restarted one appends to --record)
 
     # -- life cycle -------------------------------------------------------------------
     def start(self) -> None:
@@ -126,7 +129,10 @@ class EngineLink:
         settings = self._settings
         if self._controls and settings.controls is None:
             settings = replace(settings, controls=tuple(self._controls))  # a learned map survives a restart
-        config = dict(self.config, settings=settings, board=self._board.name)
+        # A second engine of this link (restarted, or respawned when the audio server came
+        # back) appends to the take: what the first one recorded stays.
+        config = dict(self.config, settings=settings, board=self._board.name, record_append=self._spawned)
+        self._spawned = True
         saved = os.environ.get("OPENBLAS_NUM_THREADS")
         os.environ["OPENBLAS_NUM_THREADS"] = "1"  # inherited by the engine process: BLAS single-threaded
         try:
@@ -266,8 +272,9 @@ class EngineLink:
         n = int(fields["n_modes"])
         return Snapshot(
             voices=int(fields["voices"]), load_median=fields["load_median"], load_p99=fields["load_p99"],
-            xruns=int(fields["xruns"]), peak_dbfs=fields["peak_dbfs"],
+            xruns=int(fields["xruns"]), late=int(fields["late"]), peak_dbfs=fields["peak_dbfs"],
             gain_reduction_db=fields["gain_reduction_db"], midi_events=int(fields["midi_events"]),
+            notes_dropped=int(fields["notes_dropped"]),
             note=int(fields["note"]), velocity=int(fields["velocity"]), f0_hz=fields["f0_hz"],
             mode_levels_db=levels[:n],
             mode_freqs_hz=freqs[:n], spectrum_db=spec, spectrum_bin_hz=fields["spectrum_bin_hz"],

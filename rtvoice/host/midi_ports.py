@@ -10,14 +10,24 @@ Ports are opened and closed from the engine process's main thread, which
 publishes the current set as one tuple; the callback only ever reads that tuple.
 A port that vanished is dropped from the tuple first and closed a little later,
 when no callback can still be using it.
+
+On JACK, rtmidi reads every event after one that starts a system exclusive message
+without ending it (F0 .. with no F7) as more of that message, and drops it, until
+some event ends with F7; MIDI 1.0 ends a sysex at any status byte. A sender that
+breaks off a sysex would leave the input deaf. So a small output of our own,
+connected to each of our inputs, sends a lone EOX (F7) a few dozen times a second
+(:meth:`MidiInputs.resync`): at most that long is lost after a broken sysex. The
+channel-message reader ignores a lone F7, and sysex is ignored here anyway.
 """
 
 from __future__ import annotations
 
+import re
 import sys
 import time
 from dataclasses import dataclass, field
 
+from rtvoice.engine.midi import channel_messages
 from rtvoice.host import jackinfo
 from rtvoice.host.timing import PortClock
 
@@ -60,6 +70,7 @@ class MidiPort:
     midiin: object
     virtual: bool = False
     clock: PortClock = field(default_factory=PortClock)
+    own_client: str = ""  # the rtmidi client reading it (on JACK: its port is connected to the source)
 
 
 class MidiInputs:
@@ -75,6 +86,8 @@ class MidiInputs:
         self._closing: list[tuple[float, MidiPort]] = []
         self._count = 0
         self._lister = None
+        self._eox = None  # on JACK: our MIDI output that ends a broken-off sysex on our inputs
+        self._eox_port = ""
 
     @property
     def virtual_name(self) -> str:
@@ -90,11 +103,15 @@ class MidiInputs:
             return ["MIDI input is off: python-rtmidi cannot load (pip install python-rtmidi)"]
         self.api = choose_api(self.rtmidi)
         notes = []
+        if self.api == self.rtmidi.API_UNIX_JACK:
+            self._open_eox()
         if self.mode in ("all", "virtual"):
             try:
                 mi = self._new_in(f"{self.client_name}-midi")
                 mi.open_virtual_port(VIRTUAL_PORT)
-                self.inputs = (*self.inputs, MidiPort(self.virtual_name, mi, virtual=True))
+                self.inputs = (*self.inputs, MidiPort(self.virtual_name, mi, virtual=True,
+                                                      own_client=f"{self.client_name}-midi"))
+                self._feed_eox(self.inputs[-1])
             except Exception as err:  # noqa: BLE001 - rtmidi raises its own error types
                 notes.append(f"no virtual MIDI port on {api_name(self.rtmidi, self.api)}: {err}")
         if self.mode != "virtual":
@@ -133,29 +150,71 @@ class MidiInputs:
             return self._reap()
         notes = []
         names = self.available()
-        open_names = {p.name for p in self.inputs if not p.virtual}
+        jack = self.api == self.rtmidi.API_UNIX_JACK
         keep = []
         for p in self.inputs:
-            if p.virtual or p.name in names:
+            if p.virtual or p.name in names and not (jack and self._unplugged(p)):
                 keep.append(p)
             else:
                 self._closing.append((time.monotonic() + CLOSE_DELAY_S, p))
                 notes.append(f"MIDI input gone: {p.name}")
+        open_names = {p.name for p in keep if not p.virtual}
         for name in self.wanted(names):
             if name in open_names:
                 continue
             try:
                 self._count += 1
-                mi = self._new_in(f"{self.client_name}-in{self._count}")
+                own = f"{self.client_name}-in{self._count}"
+                mi = self._new_in(own)
                 mi.open_port(names.index(name), VIRTUAL_PORT)
             except Exception as err:  # noqa: BLE001
                 notes.append(f"cannot open MIDI input {name}: {err}")
                 continue
-            keep.append(MidiPort(name, mi))
+            keep.append(MidiPort(name, mi, own_client=own))
+            self._feed_eox(keep[-1])
             notes.append(f"MIDI input opened: {name}")
         if len(keep) != len(self.inputs) or any(a is not b for a, b in zip(keep, self.inputs, strict=False)):
             self.inputs = tuple(keep)
         return notes + self._reap()
+
+    # -- ending a broken-off sysex (JACK) ------------------------------------------------
+    def _open_eox(self) -> None:
+        try:
+            out = self.rtmidi.MidiOut(self.api, name=f"{self.client_name}-eox")
+            out.open_virtual_port("out")
+        except Exception:  # noqa: BLE001 - without it a broken sysex can still deafen an input
+            return
+        self._eox = out
+        own = re.compile(rf"^{re.escape(self.client_name)}-eox(-\d+)?:out$")  # JACK may add -01 to a taken name
+        names = [n for n in jackinfo.ports(jackinfo.MIDI_TYPE, jackinfo.PORT_IS_OUTPUT) if own.match(n)]
+        self._eox_port = names[-1] if names else f"{self.client_name}-eox:out"
+
+    def _feed_eox(self, port: MidiPort) -> None:
+        """Connect our EOX output to the JACK port of the rtmidi client reading ``port``."""
+        if self._eox is None:
+            return
+        own = re.compile(rf"^{re.escape(port.own_client)}(-\d+)?:")
+        mine = [n for n in jackinfo.ports(jackinfo.MIDI_TYPE, jackinfo.PORT_IS_INPUT) if own.match(n)]
+        for name in mine[-1:]:
+            jackinfo.connect(self._eox_port, name)
+
+    def resync(self) -> None:
+        """Send the lone EOX (main thread, a few dozen times a second)."""
+        if self._eox is not None:
+            try:
+                self._eox.send_message([0xF7])
+            except Exception:  # noqa: BLE001 - its server may be gone
+                pass
+
+    @staticmethod
+    def _unplugged(port: MidiPort) -> bool:
+        """On JACK: the source is there but no longer connected to us. It went away and came
+        back under the same name between two scans (JACK dropped our connection with it)."""
+        peers = jackinfo.connections(port.name)
+        if peers is None:
+            return False  # cannot tell (no libjack): trust the name
+        mine = re.compile(rf"^{re.escape(port.own_client)}(-\d+)?:")  # JACK may add -01 to a taken name
+        return not any(mine.match(peer) for peer in peers)
 
     def _reap(self) -> list[str]:
         now = time.monotonic()
@@ -170,7 +229,11 @@ class MidiInputs:
 
     # -- audio callback -----------------------------------------------------------------
     def poll(self, now_s: float, out: list) -> None:
-        """Append (arrival_s, status, data1, data2) for every channel message waiting."""
+        """Append (arrival_s, status, data1, data2) for every channel message waiting.
+
+        rtmidi hands over each JACK MIDI event (or ALSA sequencer message) as it came; a
+        sender may still pack several messages or real-time bytes into one, or send
+        garbage, so each is read as a byte stream (:func:`channel_messages`)."""
         for port in self.inputs:
             get = port.midiin.get_message
             clock = port.clock
@@ -180,9 +243,10 @@ class MidiInputs:
                     break
                 msg, delta = item
                 arrival = clock.arrival(delta, now_s)
-                if not msg or not 0x80 <= msg[0] <= 0xEF:
-                    continue  # system messages: nothing for the voices
-                out.append((arrival, msg[0], msg[1] if len(msg) > 1 else 0, msg[2] if len(msg) > 2 else 0))
+                # Only well-formed channel messages reach the engine: stray data bytes, cut
+                # messages, system and undefined messages stay here.
+                for status, d1, d2 in channel_messages(msg):
+                    out.append((arrival, status, d1, d2))
 
     def close(self) -> None:
         ports, self.inputs = self.inputs, ()
@@ -194,6 +258,9 @@ class MidiInputs:
         if self._lister is not None:
             _close(self._lister)
             self._lister = None
+        if self._eox is not None:
+            _close(self._eox)
+            self._eox = None
 
 
 def _close(midiin) -> None:

@@ -1,0 +1,170 @@
+"""Raw MIDI bytes to channel messages (rtvoice.engine.midi.channel_messages), and the host's
+note-on budget (rtvoice.host.overload.NoteOnGuard): pure functions, property-tested.
+
+Sources: MIDI 1.0 Detailed Specification (status bytes 80-EF carry channel messages with two
+data bytes, one for program change C0 and channel pressure D0; running status; system
+exclusive F0 .. F7, ended also by any other status byte; system common F1-F7 cancel running
+status; real-time bytes F8-FF may appear anywhere, even inside another message). Reference
+library: mido's Tokenizer (mido 1.3), for streams within the part of the grammar where it
+follows the specification (it has no running status and resets on real-time bytes).
+"""
+
+from __future__ import annotations
+
+import mido.tokenizer
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from rtvoice.engine.midi import channel_messages, data_length
+from rtvoice.host.overload import NoteOnGuard
+
+REAL_TIME = st.sampled_from([0xF8, 0xF9, 0xFA, 0xFB, 0xFC, 0xFD, 0xFE, 0xFF])
+DATA = st.integers(0, 127)
+CHANNEL_STATUS = st.integers(0x80, 0xEF)
+
+
+@st.composite
+def channel_message(draw) -> list[int]:
+    status = draw(CHANNEL_STATUS)
+    return [status] + [draw(DATA) for _ in range(data_length(status))]
+
+
+@st.composite
+def framed_sysex(draw) -> list[int]:
+    return [0xF0, *draw(st.lists(DATA, max_size=40)), 0xF7]
+
+
+@st.composite
+def system_common(draw) -> list[int]:
+    status = draw(st.sampled_from([0xF1, 0xF2, 0xF3, 0xF6]))  # their data: 1, 2, 1, 0 bytes
+    return [status] + [draw(DATA) for _ in range({0xF1: 1, 0xF2: 2, 0xF3: 1, 0xF6: 0}[status])]
+
+
+def _as_tuple(msg: list[int]) -> tuple[int, int, int]:
+    return (msg[0], msg[1], msg[2] if len(msg) > 2 else 0)
+
+
+def _mido_channel_messages(data: list[int]) -> list[tuple[int, int, int]]:
+    return [_as_tuple(m) for m in mido.tokenizer.Tokenizer(data) if 0x80 <= m[0] <= 0xEF]
+
+
+def _well_formed(msg: tuple[int, int, int]) -> bool:
+    status, d1, d2 = msg
+    return 0x80 <= status <= 0xEF and 0 <= d1 <= 127 and 0 <= d2 <= 127 and (data_length(status) == 2 or d2 == 0)
+
+
+@settings(max_examples=400, deadline=None)
+@given(st.lists(st.integers(0, 255), max_size=64) | st.binary(max_size=64))
+def test_any_bytes_give_only_well_formed_channel_messages_and_never_raise(data):
+    out = channel_messages(data)
+    assert all(_well_formed(m) for m in out)
+    # every data byte serves at most one message
+    assert sum(data_length(s) for s, _, _ in out) <= sum(1 for b in bytes(data) if b < 0x80)
+
+
+@settings(max_examples=300, deadline=None)
+@given(st.lists(channel_message() | framed_sysex() | system_common(), max_size=12))
+def test_complete_messages_read_as_the_reference_tokenizer_reads_them(parts):
+    data = [b for part in parts for b in part]
+    assert channel_messages(data) == _mido_channel_messages(data)
+    assert channel_messages(data) == [_as_tuple(p) for p in parts if p[0] < 0xF0]
+
+
+@settings(max_examples=300, deadline=None)
+@given(st.lists(channel_message(), min_size=1, max_size=12))
+def test_running_status_omits_repeated_status_bytes(messages):
+    """MIDI 1.0: a message with the same status as the one before may leave its status out."""
+    data: list[int] = []
+    last = None
+    for msg in messages:
+        data += msg if msg[0] != last else msg[1:]
+        last = msg[0]
+    assert channel_messages(data) == [_as_tuple(m) for m in messages]
+
+
+@settings(max_examples=300, deadline=None)
+@given(st.lists(st.integers(0, 0xF7), max_size=48), st.lists(st.tuples(st.integers(0, 48), REAL_TIME), max_size=8))
+def test_real_time_bytes_anywhere_change_nothing(data, inserts):
+    """MIDI 1.0: real-time bytes may sit between any two bytes, even inside a message."""
+    mixed = list(data)
+    for pos, byte in sorted(inserts, reverse=True):
+        mixed.insert(min(pos, len(mixed)), byte)
+    assert channel_messages(mixed) == channel_messages(data)
+
+
+@settings(max_examples=200, deadline=None)
+@given(st.lists(channel_message(), max_size=6), CHANNEL_STATUS, DATA)
+def test_a_message_cut_short_is_dropped(messages, status, d1):
+    data = [b for m in messages for b in m]
+    cut = [status] if data_length(status) == 1 else [status, d1]
+    assert channel_messages(data + cut) == channel_messages(data)
+
+
+@settings(max_examples=200, deadline=None)
+@given(st.lists(st.integers(0, 255), max_size=40), channel_message())
+def test_a_status_byte_ends_an_unterminated_sysex(payload, msg):
+    """MIDI 1.0: any status byte but a real-time one ends a system exclusive message."""
+    data = [0xF0, *[b & 0x7F for b in payload], *msg]
+    assert channel_messages(data) == [_as_tuple(msg)]
+
+
+def test_worked_examples():
+    assert channel_messages([0x90, 60, 100]) == [(0x90, 60, 100)]
+    assert channel_messages([0x90, 0xF8, 60, 0xFE, 100]) == [(0x90, 60, 100)]
+    assert channel_messages([0x90, 60, 100, 64, 0]) == [(0x90, 60, 100), (0x90, 64, 0)]
+    assert channel_messages([0xC5, 3, 4]) == [(0xC5, 3, 0), (0xC5, 4, 0)]
+    assert channel_messages([60, 100]) == []  # stray data bytes
+    assert channel_messages([0x90, 60]) == []  # cut short
+    assert channel_messages([0x90, 0x90, 60]) == []  # a status byte where data should be
+    assert channel_messages([0xF0, 1, 2, 0xF7, 0x80, 60, 0]) == [(0x80, 60, 0)]
+    assert channel_messages([0xF2, 1, 2, 3]) == []  # song position, then a stray byte
+    assert channel_messages(b"") == []
+
+
+# -- the note-on budget ------------------------------------------------------------------------
+
+PERIOD_S = 256 / 48000
+
+
+def _block(note_ons: int, others: int = 0) -> list[tuple[int, int, int, int]]:
+    events = [(i, 0x90 | (i % 16), 40 + i % 60, 100) for i in range(note_ons)]
+    events += [(i, 0xB0, 7, i % 128) for i in range(others)] + [(0, 0x80, 40, 0)]
+    return sorted(events, key=lambda e: e[0])
+
+
+def test_note_on_budget_keeps_every_other_event_and_the_first_note_ons_in_order():
+    guard = NoteOnGuard(PERIOD_S, budget_share=0.25, burst=8)
+    events = _block(50, others=20)
+    before = list(events)
+    dropped = guard.admit(events)
+    assert dropped == 42 and guard.dropped == 42
+    note_ons = [e for e in before if e[1] & 0xF0 == 0x90 and e[3]]
+    others = [e for e in before if not (e[1] & 0xF0 == 0x90 and e[3])]
+    assert [e for e in events if e[1] & 0xF0 == 0x90 and e[3]] == note_ons[:8]
+    assert [e for e in events if not (e[1] & 0xF0 == 0x90 and e[3])] == others
+    assert events == [e for e in before if e in events]  # order kept
+
+
+def test_note_on_budget_follows_the_measured_cost():
+    """With a note-on costing c seconds over a block of none, a sustained flood gets about
+    budget / c note-ons a block (a token bucket), and a chord after quiet passes whole."""
+    cost_s, base_s = 0.0004, 0.0005
+    guard = NoteOnGuard(PERIOD_S, budget_share=0.25, burst=8)
+    passed = []
+    for _ in range(2000):
+        events = _block(40)
+        guard.admit(events)
+        n = sum(1 for e in events if e[1] & 0xF0 == 0x90 and e[3])
+        passed.append(n)
+        guard.learn(base_s + n * cost_s)
+        quiet: list = []
+        guard.admit(quiet)
+        guard.learn(base_s)
+    rate = sum(passed[-500:]) / 500 / 2  # note-ons per block, over flood and quiet blocks alike
+    assert abs(guard.cost_s - cost_s) < 0.1 * cost_s
+    assert abs(rate - 0.25 * PERIOD_S / cost_s) < 0.15 * 0.25 * PERIOD_S / cost_s
+    for _ in range(20):  # a moment's quiet fills the bucket again
+        guard.admit([])
+        guard.learn(base_s)
+    chord = _block(8)
+    assert guard.admit(chord) == 0
