@@ -119,10 +119,11 @@ class VoicePool:
         a = _powers_into(p, np.empty((self.n1,) + p.shape, complex))  # a[j] = p^j
         b = _powers_into(a[-1] * p, np.empty((self.n2 + 1,) + p.shape, complex))  # b[j] = p^(N1 j)
         # The single-precision B entries that would be subnormal there (under e^-69) are zero.
-        b[sigma[None] * (self.n1 / self.fs) * np.arange(self.n2 + 1)[:, None, None] > FLOAT32_FLOOR_NEPERS] = 0.0
-        unheard = omega >= self.omega_limit
-        if unheard.any():
-            a[:, unheard] = 0.0
+        nepers = sigma * (self.n1 / self.fs)  # per step of B
+        if nepers.max() * self.n2 > FLOAT32_FLOOR_NEPERS:
+            b[nepers[None] * np.arange(self.n2 + 1)[:, None, None] > FLOAT32_FLOOR_NEPERS] = 0.0
+        if omega.max() >= self.omega_limit:
+            a[:, omega >= self.omega_limit] = 0.0
         rows = np.moveaxis(a, 0, -1)  # (voices, modes, N1)
         self.A_rows[slots, :, 0, :] = rows.real
         self.A_rows[slots, :, 1, :] = -rows.imag

@@ -1,16 +1,19 @@
 """A budget for note-ons per block, so a flood of them cannot stall the audio callback.
 
 Starting a voice (and stealing one) is the engine's costly event: a few tenths of a
-millisecond each on a slow machine, so at thousands of note-ons a second the callback
-would overrun its period, the audio server would drop the client and the MIDI
-queue would overflow, losing the very all-notes-off that should end it. The guard
-learns what one note-on costs here (the render time of blocks with note-ons, less
-that of blocks without, per note-on, as an envelope that rises fast and falls slowly)
-and keeps a token bucket: each block adds as many note-ons as fit in a share of its
-period, up to a burst of :data:`BURST` (a chord struck with both hands passes whole
-after a moment's quiet); note-ons without a token are dropped and counted. Every other
-event (note-offs, controllers, pedal) is cheap and always passes, so a panic still
-works during a flood.
+millisecond on a slow machine (a chord costs less per note, the engine starts its
+voices together), so at thousands of note-ons a second the callback would overrun
+its period, the audio server would drop the client and the MIDI queue would
+overflow, losing the very all-notes-off that should end it. The guard learns what
+one note-on costs here (the render time of blocks with note-ons, less that of blocks
+without, per note-on, as an envelope that rises fast and falls slowly) and keeps a
+token bucket: each block adds as many note-ons as fit in a share of its period, up
+to a burst of :data:`BURST`. A note-on without a token waits for the next block,
+and so does every event after it (order is kept, so no note-off overtakes its
+note-on): a big chord is spread over a few blocks (a few milliseconds) and nothing
+is lost. Only when more than :data:`MAX_DEFERRED` events wait (a flood) are the
+waiting note-ons dropped and counted, and the other events (note-offs, controllers,
+pedal: cheap) play at once, so a panic still works during a flood.
 """
 
 from __future__ import annotations
@@ -20,23 +23,32 @@ import math
 from rtvoice.engine.midi import NOTE_ON
 
 BUDGET_SHARE = 0.12  # over time, note-ons may take this share of the callback's period
-BURST = 8  # note-ons the bucket holds: a two-handed chord
+BURST = 8  # note-ons the bucket holds: a two-handed chord passes whole after a moment's quiet
+MAX_DEFERRED = 64  # events that may wait for a later block before waiting note-ons are dropped
 INITIAL_COST_S = 4e-4  # a cautious first guess of one note-on's cost, until measured
 RISE_RATE, FALL_RATE = 0.3, 0.02  # the cost estimate follows rises fast and falls slowly (an upper envelope)
 BASE_RATE = 0.05  # weight of each new block in the running mean of blocks without note-ons
 
 
-class NoteOnGuard:
-    """Drops the note-ons of a block beyond what the measured cost allows (callback side)."""
+def _offset(event: tuple) -> int:
+    return event[0]
 
-    def __init__(self, period_s: float, budget_share: float = BUDGET_SHARE, burst: int = BURST):
+
+class NoteOnGuard:
+    """Holds back the note-ons of a block beyond what the measured cost allows (callback side)."""
+
+    def __init__(self, period_s: float, budget_share: float = BUDGET_SHARE, burst: int = BURST,
+                 max_deferred: int = MAX_DEFERRED):
         self.period_s = period_s
         self.budget_s = budget_share * period_s
         self.burst = burst
+        self.max_deferred = max_deferred
         self.tokens = float(burst)
         self.cost_s = INITIAL_COST_S  # one note-on, over a block without any
         self.base_s = 0.0  # a block without note-ons
         self.dropped = 0
+        self.deferred = 0  # events that waited for a later block, all told
+        self._waiting: list = []  # events for the start of the next block, in order
         self._note_ons = 0
 
     @property
@@ -44,29 +56,49 @@ class NoteOnGuard:
         """Note-ons the next block may take."""
         return math.floor(self.tokens)
 
+    @property
+    def waiting(self) -> int:
+        """Events held back for the next block."""
+        return len(self._waiting)
+
     def admit(self, events: list) -> int:
-        """Remove from ``events`` (sample offset, status, data1, data2) the note-ons over the
-        budget, keeping the first ones and every other event in order; returns how many went."""
+        """Fit ``events`` (sample offset, status, data1, data2; in time order) to the budget, in place.
+
+        Events held back from earlier blocks come first, at offset 0. From the first
+        note-on without a token on, events wait for the next block; returns how many
+        note-ons were dropped (only when too many wait).
+        """
         self.tokens = min(self.burst, self.tokens + self.budget_s / self.cost_s)
-        count = 0
-        for _, status, _, velocity in events:
-            if status & 0xF0 == NOTE_ON and velocity:
-                count += 1
+        if self._waiting:
+            events[:0] = self._waiting
+            self._waiting = []
         allowed = self.allowed
-        self._note_ons = min(count, allowed)
-        self.tokens -= self._note_ons
-        if count <= allowed:
+        count = 0
+        cut = None
+        for i, (_, status, _, velocity) in enumerate(events):
+            if status & 0xF0 == NOTE_ON and velocity:
+                if count == allowed:
+                    cut = i
+                    break
+                count += 1
+        self._note_ons = count
+        self.tokens -= count
+        if cut is None:
             return 0
-        kept = []
-        seen = 0
-        for event in events:
+        rest = events[cut:]
+        del events[cut:]
+        if len(rest) <= self.max_deferred:
+            self._waiting = [(0, status, d1, d2) for _, status, d1, d2 in rest]
+            self.deferred += len(rest)
+            return 0
+        # A flood: the waiting note-ons go; everything else plays now, in order.
+        dropped = 0
+        for event in rest:
             if event[1] & 0xF0 == NOTE_ON and event[3]:
-                seen += 1
-                if seen > allowed:
-                    continue
-            kept.append(event)
-        events[:] = kept
-        dropped = count - allowed
+                dropped += 1
+            else:
+                events.append(event)
+        events.sort(key=_offset)  # held-back events sit at offset 0 (sort is stable: order kept)
         self.dropped += dropped
         return dropped
 
