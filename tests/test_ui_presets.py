@@ -174,3 +174,23 @@ def test_revert_goes_back_to_the_saved_preset_after_asking(link):
     assert asked
     assert slot.settings.get("pickup.0.position") == 0.25 and not slot.dirty
     assert engine_back
+
+
+def test_a_preset_from_a_newer_rtvoice_loads_and_the_screen_says_what_was_left_out(link, home):
+    # A newer version's keys are left out with a warning (rtvoice.engine.presets.PresetWarning);
+    # in the terminal UI stderr is not seen, so the message line must say it.
+    folder = Path(os.environ["RTVOICE_HOME"]) / "presets"
+    folder.mkdir(parents=True, exist_ok=True)
+    (folder / "from-the-future.toml").write_text(
+        'format = 99\n[string]\nmodes = 64\nshimmer_depth = 0.4\n', encoding="utf-8")
+
+    async def body():
+        app = RtvoiceApp(fresh(link), safety_note=False)
+        async with app.run_test(size=(120, 40)) as pilot:
+            await pilot.pause()
+            await open_and_load(pilot, app, "from-the")
+            return app.session.slot, app.message_text
+
+    slot, message = run(body())
+    assert slot.preset == "from-the-future" and slot.settings.get("string.modes") == 64
+    assert message.startswith("warning:") and "shimmer_depth" in message

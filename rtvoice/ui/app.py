@@ -171,7 +171,7 @@ class RtvoiceApp(PresetActions, App[int]):
 
     def say_error(self, text: str) -> None:
         self.message_line.say(f"refused: {text}" if not text.startswith(
-            ("refused", "error")) else text, error=True)
+            ("refused", "error", "warning")) else text, error=True)
 
     @property
     def message_text(self) -> str:

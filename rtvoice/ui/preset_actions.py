@@ -96,6 +96,8 @@ class PresetActions:
             self.say_error(str(err))
             return
         self._use_sound(f"loaded {choice.name} ({choice.origin})")
+        for note in self.session.notes:  # e.g. keys from a newer rtvoice, left out
+            self.say_error(f"warning: {note}")
 
     def _revert(self) -> None:
         try:
@@ -104,6 +106,8 @@ class PresetActions:
             self.say_error(str(err))
             return
         self._use_sound(f"reverted to {self.session.slot.preset or 'the defaults'}")
+        for note in self.session.notes:
+            self.say_error(f"warning: {note}")
 
     def _delete(self, choice: PresetChoice) -> None:
         if choice.origin == "factory":

@@ -8,6 +8,7 @@ as it was.
 
 from __future__ import annotations
 
+import warnings
 from dataclasses import dataclass, fields, replace
 from typing import Any
 
@@ -57,6 +58,7 @@ class SoundSession:
         first = Slot(settings, preset, origin, saved, path)
         self.slots: dict[str, Slot] = {"A": first, "B": first}
         self.active = "A"
+        self.notes: list[str] = []  # warnings of the last preset read (see load_info)
 
     # -- reading ------------------------------------------------------------------
     @property
@@ -124,9 +126,20 @@ class SoundSession:
         return self.load_info(presets.find_preset(name_or_path))
 
     def load_info(self, info: presets.PresetInfo) -> Settings:
-        """Load the preset file ``info`` names (PresetError / SettingsError change nothing)."""
-        settings = presets.read_preset_file(info.path)
+        """Load the preset file ``info`` names (PresetError / SettingsError change nothing).
+
+        What the file's :class:`~rtvoice.engine.presets.PresetWarning` says (keys from a
+        newer rtvoice left out) is kept in :attr:`notes` for the screen to show.
+        """
+        settings = self._read(info.path)
         self._put(Slot(settings, info.name, info.origin, settings, str(info.path)))
+        return settings
+
+    def _read(self, path) -> Settings:
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always", presets.PresetWarning)
+            settings = presets.read_preset_file(path)
+        self.notes = [str(w.message) for w in caught if issubclass(w.category, presets.PresetWarning)]
         return settings
 
     def save(self, name: str | None = None) -> str:
@@ -153,7 +166,7 @@ class SoundSession:
             settings = Settings.defaults()
             self._put(Slot(settings))
             return settings
-        settings = presets.read_preset_file(slot.path)
+        settings = self._read(slot.path)
         self._put(Slot(settings, slot.preset, slot.origin, settings, slot.path))
         return settings
 

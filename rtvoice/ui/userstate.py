@@ -35,7 +35,7 @@ def read_state() -> dict:
     """The remembered values; an unreadable file counts as empty (it is only a reminder)."""
     try:
         return tomllib.loads(state_path().read_text(encoding="utf-8"))
-    except (OSError, UnicodeDecodeError, tomllib.TOMLDecodeError):
+    except (OSError, UnicodeDecodeError, tomllib.TOMLDecodeError, RecursionError):  # deep nesting: garbage
         return {}
 
 

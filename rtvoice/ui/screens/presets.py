@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import warnings
 from dataclasses import dataclass
 
 from textual.app import ComposeResult
@@ -11,7 +12,7 @@ from textual.screen import ModalScreen
 from textual.widgets import Button, Input, OptionList, Static
 from textual.widgets.option_list import Option
 
-from rtvoice.engine.presets import PresetError, PresetInfo, read_preset_file
+from rtvoice.engine.presets import PresetError, PresetInfo, PresetWarning, read_preset_file
 
 ACTIONS = ("load", "save_as", "rename", "delete", "revert")
 
@@ -96,8 +97,12 @@ class PresetScreen(ModalScreen[PresetChoice | None]):
         if info is None:
             return
         try:
-            settings = read_preset_file(info.path)
+            with warnings.catch_warnings(record=True) as caught:
+                warnings.simplefilter("always", PresetWarning)
+                settings = read_preset_file(info.path)
             text = settings.description or "(no description)"
+            if caught:
+                text += f" (from a newer rtvoice: {caught[0].message})"
         except (PresetError, ValueError) as err:
             text = f"cannot be read: {err}"
         self.query_one("#preset-note", Static).update(f"{info.name}: {text}")
