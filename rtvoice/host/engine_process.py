@@ -52,6 +52,11 @@ STOP_TIMEOUT_S = 1.5
 GAP_NEED_S, GAP_POLL_S, GAP_TRIES = 0.0003, 0.0002, 40
 RT_PRIORITY_ENV = "RTVOICE_RT_PRIORITY"
 DEFAULT_RT_PRIORITY = 70  # SCHED_FIFO priority asked for the audio thread where allowed; 0 keeps it normal
+#: SCHED_FIFO priority of the engine process's main thread (when the audio thread gets one): below
+#: the audio thread, above every ordinary process, so that no busy program (the UI, a compiler) can
+#: pre-empt this thread while it holds the interpreter lock the audio callback is waiting for. It
+#: sleeps between its short jobs (publishing meters, forwarding messages), so it takes little.
+MAIN_RT_PRIORITY = 5
 
 
 def engine_main(conn, config: dict) -> None:
@@ -182,6 +187,7 @@ class EngineHost:
         self._last_end = self._last_took = 0.0  # perf_counter at the end of the last callback, its duration
         self._rt_wanted = _env_int(RT_PRIORITY_ENV, DEFAULT_RT_PRIORITY)
         self.rt_priority = 0
+        self.main_rt_priority = 0
 
     # -- start-up -----------------------------------------------------------------------
     def start(self) -> None:
@@ -339,6 +345,8 @@ class EngineHost:
             self._gain_target = 0.0
 
     def run(self) -> None:
+        if self._rt_wanted > 0:
+            self.main_rt_priority = _realtime_priority(min(MAIN_RT_PRIORITY, self._rt_wanted))
         next_publish = next_scan = next_health = time.monotonic()
         parent = os.getppid()
         while True:
@@ -473,6 +481,7 @@ class EngineHost:
             "load_median": self.load.run_percentile(0.5), "load_p99": self.load.run_percentile(0.99),
             "midi_events": self.midi_events, "notes_dropped": self.guard.dropped,
             "clock_resyncs": self.clock.resyncs, "rt_priority": self.rt_priority,
+            "main_rt_priority": self.main_rt_priority,
         }
         if self.recorder is not None:
             summary.update(record=str(self.recorder.path), record_seconds=self.recorder.seconds,
