@@ -225,8 +225,8 @@ def _running(pid: int) -> bool:
 
 
 def test_ui_killed_while_a_note_rings_the_engine_fades_out_and_exits(jack_server, tmp_path):
-    """tests/test_host_jack.py checks that the engine exits when its UI dies; this checks the
-    fade too, on what the engine played (its --record take ends with the fade, not a cut)."""
+    """The engine exits when its UI dies, and fades out first: checked on what the engine played
+    (its --record take ends with the fade, not a cut)."""
     name = f"rtvorphan{os.getpid()}"
     take = tmp_path / "take.wav"
     script = (
