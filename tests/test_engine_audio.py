@@ -15,6 +15,7 @@ from analysis import db, decay_rate_per_s, fit_damped_modes, peak_frequency_hz
 from rtvoice.engine.output import CEILING
 from rtvoice.engine.renderer import OUTPUT_SCALE, RETIRE_LEVEL, Engine
 from rtvoice.engine.settings import Settings
+from rtvoice.engine.voices import HELD, SOUNDING
 from rtvoice.offline.render import note_events, render_events
 
 FS = 48000
@@ -234,6 +235,34 @@ def test_full_pool_steals_the_quietest_voice():
     assert engine.stats.stolen == 1
     notes = sorted(int(n) for n in engine.pool.note[: engine.pool.n_active])
     assert notes == [64, 67]  # the quiet one faded out and retired
+
+
+def test_a_burst_of_quiet_notes_does_not_steal_a_loud_held_one():
+    # Stealing takes the quietest voice (common practice), also when the candidates were started
+    # in the same block as the note that needs a voice: a flood of soft notes steals among itself.
+    engine = Engine(clean(voices=16), FS, 256)
+    engine.render([(0, 0xBF, 64, 127), (0, 0x9F, 45, 127)])  # pedal down, a loud note on channel 16
+    for _ in range(4):
+        engine.render()
+    engine.render([(i % 256, 0x90, 50 + i % 40, 10 + i % 7) for i in range(40)])
+    for _ in range(10):
+        engine.render()
+    pool = engine.pool
+    held = [v for v in range(pool.n_active) if pool.channel[v] == 15 and pool.note[v] == 45]
+    assert held and pool.state[held[0]] in (HELD, SOUNDING)
+    assert engine.stats.stolen >= 40 - 16
+
+
+def test_a_voice_count_change_rebuilds_the_pool_and_notes_play_after_it():
+    s = Settings.defaults().with_values({"voices": 16, "string.modes": 96})
+    engine = Engine(s, FS, 256)
+    engine.render([(0, 0x90, 60, 100)])
+    engine.apply_settings(s.with_values({"voices": 32, "string.modes": 128}))
+    for _ in range(50):
+        engine.render()
+    assert engine.pool.modes == 128 and engine.voices == 32
+    out = np.concatenate([engine.render([(0, 0x90, 69, 100)]).copy()] + [engine.render().copy() for _ in range(40)])
+    assert peak_frequency_hz(out[2400:], FS, 440.0, 20.0) == pytest.approx(440.0, abs=0.5)
 
 
 def test_repluck_has_no_click():

@@ -136,6 +136,7 @@ class Engine:
         self._b1, self._b3 = loss_coefficients(s.get("string.t60_low"), s.get("string.t60_high"))
         self._release_t60 = s.get("string.release")
         self._initial = initial_amplitudes(s, self.pool.modes)
+        self._weight_abs = None  # see _start_bound
 
     @property
     def initial(self) -> np.ndarray:
@@ -172,6 +173,18 @@ class Engine:
 
     def _prepare_pickups(self) -> None:
         self._disp, self._vel = self._pickup_sums.update(self._pickups_now)
+        self._weight_abs = None  # see _start_bound
+
+    def _start_bound(self, velocity: int, initial: np.ndarray | None) -> float:
+        """The level bound a note-on will have, before its voice is set up (for stealing).
+
+        |g| ~ |disp + i (w_k / w_1) vel| for each mode: the pickup weight without the
+        small damping term of the velocity factor.
+        """
+        if self._weight_abs is None:
+            self._weight_abs = np.abs(self._disp + 1j * self._stretch * self._vel)
+        amps = self._initial if initial is None else initial
+        return (velocity / 127.0) ** 2 * float(np.abs(amps) @ self._weight_abs)
 
     def _weights(self, lo: int, hi: int, out: np.ndarray) -> None:
         """Pickup weights of slots lo..hi-1 into ``out``.
@@ -402,8 +415,8 @@ class Engine:
         pool.channel[v] = ch
         self._order += 1
         pool.order[v] = self._order
-        self._bound[v] = np.inf  # not stolen again in the block it starts in (its level is not set yet)
         initial = self.excitation_hook(ch) if self.excitation_hook is not None else None
+        self._bound[v] = self._start_bound(velocity, initial)  # its level is not set up yet
         self._changes.append((v, at, START, (ch, note, velocity, initial)))
 
     def _bounds(self) -> np.ndarray:
@@ -411,14 +424,14 @@ class Engine:
 
         A voice's bound falls by at most one block's decay within the block, so the
         choice of the quietest voice is the same as with fresh bounds but for near ties.
-        Voices started in this block count as loudest.
+        Voices started in this block have the level their note-on gives them.
         """
         if self._bound_block != self.stats.blocks:
             pool = self.pool
             self._bound[: pool.n_active] = pool.bound()
-            for v, _, kind, _ in self._changes:
+            for v, _, kind, data in self._changes:
                 if kind == START:
-                    self._bound[v] = np.inf
+                    self._bound[v] = self._start_bound(data[2], data[3])
             self._bound_block = self.stats.blocks
         return self._bound
 
@@ -621,6 +634,7 @@ class Engine:
             self._build_pool()
             self._prepare_notes()
             self._prepare_electronics()
+            self._prepare_pickups()  # the weights per mode, for the new mode count
             self._gain_target = 10 ** (self.settings.get("output.gain_db") / 20)
 
     # -- what the meters and UI read ----------------------------------------------
