@@ -171,6 +171,7 @@ class EngineHost:
         self._ports_changed = False
         self._rec_reported = False
         self.load = CallbackMeter(self.period_s)
+        self.render_load = CallbackMeter(self.period_s)  # the engine's share of it (the rest is the host's)
         self.guard = NoteOnGuard(self.period_s)
         self.voice_stage = VoiceStage()
         self.publisher = Publisher(self.board, self.ring, self.rate)
@@ -275,7 +276,9 @@ class EngineHost:
         self.midi_events += len(events)
         t_render = time.perf_counter()
         y = self.engine.render(events)
-        self.guard.learn(time.perf_counter() - t_render)
+        took = time.perf_counter() - t_render
+        self.guard.learn(took)
+        self.render_load.add(took)
         self.router.after_block(now)
         self._apply_gain(y)
         if out is not None:
@@ -479,6 +482,8 @@ class EngineHost:
         summary = {
             "seconds": elapsed, "blocks": self.blocks, "xruns": self.xruns, "late": self.late,
             "load_median": self.load.run_percentile(0.5), "load_p99": self.load.run_percentile(0.99),
+            "render_median": self.render_load.run_percentile(0.5),
+            "render_p99": self.render_load.run_percentile(0.99),
             "midi_events": self.midi_events, "notes_dropped": self.guard.dropped,
             "clock_resyncs": self.clock.resyncs, "rt_priority": self.rt_priority,
             "main_rt_priority": self.main_rt_priority,
