@@ -152,26 +152,29 @@ class Limiter:
             self.gain_reduction_db = 0.0
             self.peak = peak
             return
-        # Release: the gain climbs back towards 1.
+        # Release: the gain climbs back towards 1 (rising, so its least value is the first).
         np.multiply(self._release_curve[:n], g0 - 1.0, out=ramp)
         ramp += 1.0
+        least = float(ramp[0])
         if peak * ramp[peak_at] > CEILING:
             target = CEILING / peak
             # Attack: a straight line from g0 to the target at the peak, then held.
             steps = peak_at + 1
-            ramp[:steps] = g0 + (target - g0) * self._idx[:steps] / steps
-            ramp[steps:] = np.minimum(ramp[steps:], target)
+            np.multiply(self._idx[:steps], (target - g0) / steps, out=ramp[:steps])
+            ramp[:steps] += g0
+            np.minimum(ramp[steps:], target, out=ramp[steps:])
+            least = min(float(ramp[0]), target)  # the line's first step, or the held target
         x *= ramp
         self.gain = float(ramp[-1])
         if self.gain > self.RECOVERED:
             self.gain = 1.0
-        self.gain_reduction_db = -20.0 * math.log10(max(float(ramp.min()), 1e-12))
-        np.abs(x, out=work)
-        over = int(np.count_nonzero(work > CEILING))
-        if over:
-            self.clipped += over
+        self.gain_reduction_db = -20.0 * math.log10(max(least, 1e-12))
+        peak_after = max(float(x.max()), -float(x.min()))
+        if peak_after > CEILING:  # a transient inside the attack line: the safety clip
+            np.abs(x, out=work)
+            self.clipped += int(np.count_nonzero(work > CEILING))
             np.clip(x, -CEILING, CEILING, out=x)
-        self.peak = min(float(work.max()), CEILING)
+        self.peak = min(peak_after, CEILING)
 
     def reset(self) -> None:
         self.gain = 1.0
