@@ -101,6 +101,7 @@ def offline_speed(events: list[TimedEvent], settings: Settings, block: int = 256
     """
     walls, cpus = [], []
     audio_s = 0.0
+    render_events(events, settings, SAMPLE_RATE_HZ, block, TAIL_CAP_S)  # warm-up, not timed (common practice)
     for _ in range(runs):
         c0, w0 = time.process_time(), time.perf_counter()
         audio = render_events(events, settings, SAMPLE_RATE_HZ, block, TAIL_CAP_S)
