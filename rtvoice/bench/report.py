@@ -129,8 +129,10 @@ def render_text(r: dict) -> str:
         for key, label in (("without_ui", "headless"), ("with_ui", "with the terminal UI drawing")):
             m = rt[key]
             extra = f", {m['ui_frames_drawn']} UI frames" if "ui_frames_drawn" in m else ""
+            render = (f" (the engine's render: median {_pct(m['render_median'])}, p99 {_pct(m['render_p99'])})"
+                      if m.get("render_median") is not None else "")
             out.append(f"- {label}: callback median {_pct(m['load_median'])}, p99 {_pct(m['load_p99'])} of the "
-                       f"period over {m['blocks']} blocks in {m['seconds']} s; xruns {m['xruns']}{extra}")
+                       f"period{render} over {m['blocks']} blocks in {m['seconds']} s; xruns {m['xruns']}{extra}")
     else:
         out.append(f"- not measured: {rt['reason']}")
     out += _profile_text(r)
