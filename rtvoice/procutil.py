@@ -1,9 +1,10 @@
-"""Small process helpers shared by the benchmark and the survey (no rtvoice imports)."""
+"""Small process helpers shared by the benchmark, the survey and the tests (no rtvoice imports)."""
 
 from __future__ import annotations
 
 import contextlib
 import os
+import signal
 import subprocess
 from collections.abc import Iterator, Mapping
 
@@ -23,11 +24,14 @@ def scoped_environ(values: Mapping[str, str]) -> Iterator[None]:
                 os.environ[k] = v
 
 
-def stop_process(proc: subprocess.Popen, timeout_s: float = 5.0) -> None:
-    """Ask a child to stop (SIGTERM), and kill it if it has not gone within ``timeout_s``."""
-    proc.terminate()
-    try:
-        proc.wait(timeout_s)
-    except subprocess.TimeoutExpired:
-        proc.kill()
-        proc.wait()
+def stop_process(proc: subprocess.Popen, timeout_s: float = 5.0, sig: int = signal.SIGTERM) -> int | None:
+    """Ask a child to stop (``sig``, SIGTERM by default), and kill it if it has not gone within
+    ``timeout_s``; returns its exit status."""
+    if proc.poll() is None:
+        proc.send_signal(sig)
+        try:
+            proc.wait(timeout_s)
+        except subprocess.TimeoutExpired:
+            proc.kill()
+            proc.wait()
+    return proc.returncode

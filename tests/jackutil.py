@@ -29,6 +29,8 @@ from typing import Literal
 
 import numpy as np
 
+from rtvoice.procutil import stop_process
+
 Direction = Literal["input", "output"]
 
 #: Environment for every JACK tool: never auto-start a server.
@@ -774,17 +776,9 @@ class HeadlessHost:
 
     def stop(self, timeout_s: float = 15.0) -> int:
         """SIGTERM, then wait (SIGKILL after ``timeout_s``); returns the exit status."""
-        import signal
-
-        if self.process.poll() is None:
-            self.process.send_signal(signal.SIGTERM)
-            try:
-                self.process.wait(timeout_s)
-            except subprocess.TimeoutExpired:
-                self.process.kill()
-                self.process.wait(5)
+        code = stop_process(self.process, timeout_s)
         self._log.close()
-        return self.process.returncode
+        return code
 
 
 class RtmidiSender:

@@ -30,6 +30,7 @@ from analysis import fit_damped_modes, peak_frequency_hz
 from rtvoice.engine.controls import default_entries
 from rtvoice.offline.wav import read_wav
 from rtvoice.physics.pickup import aperture_weights
+from rtvoice.procutil import stop_process
 
 pytestmark = pytest.mark.jack
 
@@ -103,15 +104,9 @@ class Host:
             self.midi_out.close_port()
             self.midi_out.delete()
             self.midi_out = None
-        if self.proc.poll() is None:
-            self.proc.send_signal(sig)
-            try:
-                self.proc.wait(timeout_s)
-            except subprocess.TimeoutExpired:
-                self.proc.kill()
-                self.proc.wait(5)
+        code = stop_process(self.proc, timeout_s, sig)
         self._log.close()
-        return self.proc.returncode
+        return code
 
 
 def record(host: Host, tmp_path: Path, seconds: float, actions: list[tuple[float, callable]]):

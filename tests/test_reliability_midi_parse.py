@@ -193,3 +193,22 @@ def test_note_on_budget_follows_the_measured_cost():
     assert guard.waiting == 0
     chord = _block(8)
     assert guard.admit(chord) == 0 and note_ons(chord) == note_ons(_block(8))
+
+
+def test_a_panic_behind_waiting_note_ons_is_never_later_than_the_longest_wait():
+    # The guard's promise (rtvoice.host.overload.MAX_WAIT_S): whatever waits behind held-back
+    # note-ons, here an all-notes-off on every channel, plays within that time.
+    from rtvoice.host.overload import MAX_WAIT_S
+
+    guard = NoteOnGuard(PERIOD_S, budget_share=0.05, burst=2, max_deferred=64)
+    guard.cost_s = 0.001  # a slow machine: few note-ons a block
+    events = [(i, 0x90, 40 + i, 100) for i in range(40)] + [(100 + ch, 0xB0 | ch, 123, 0) for ch in range(16)]
+    blocks = 0
+    panic_seen = 0
+    while panic_seen < 16 and blocks < 1000:
+        guard.admit(events)
+        panic_seen += sum(1 for e in events if e[1] & 0xF0 == 0xB0 and e[2] == 123)
+        events = []
+        blocks += 1
+    assert panic_seen == 16
+    assert blocks * PERIOD_S <= MAX_WAIT_S + 2 * PERIOD_S

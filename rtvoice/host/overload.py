@@ -11,9 +11,10 @@ token bucket: each block adds as many note-ons as fit in a share of its period, 
 to a burst of :data:`BURST`. A note-on without a token waits for the next block,
 and so does every event after it (order is kept, so no note-off overtakes its
 note-on): a big chord is spread over a few blocks (a few milliseconds) and nothing
-is lost. Only when more than :data:`MAX_DEFERRED` events wait (a flood) are the
-waiting note-ons dropped and counted, and the other events (note-offs, controllers,
-pedal: cheap) play at once, so a panic still works during a flood.
+is lost. Only when more than :data:`MAX_DEFERRED` events wait, or the oldest has
+waited :data:`MAX_WAIT_S` (a flood), are the waiting note-ons dropped and counted,
+and the other events (note-offs, controllers, pedal: cheap) play at once, so a
+panic still works during a flood and is never more than that late.
 """
 
 from __future__ import annotations
@@ -25,6 +26,7 @@ from rtvoice.engine.midi import NOTE_ON
 BUDGET_SHARE = 0.12  # over time, note-ons may take this share of the callback's period
 BURST = 8  # note-ons the bucket holds: a two-handed chord passes whole after a moment's quiet
 MAX_DEFERRED = 64  # events that may wait for a later block before waiting note-ons are dropped
+MAX_WAIT_S = 0.05  # nor may any event wait longer than this (so a panic behind them is not late)
 INITIAL_COST_S = 4e-4  # a cautious first guess of one note-on's cost, until measured
 RISE_RATE, FALL_RATE = 0.3, 0.02  # the cost estimate follows rises fast and falls slowly (an upper envelope)
 BASE_RATE = 0.05  # weight of each new block in the running mean of blocks without note-ons
@@ -49,6 +51,8 @@ class NoteOnGuard:
         self.dropped = 0
         self.deferred = 0  # events that waited for a later block, all told
         self._waiting: list = []  # events for the start of the next block, in order
+        self._waited = 0  # blocks the oldest waiting event has waited
+        self._max_wait_blocks = max(1, math.ceil(MAX_WAIT_S / period_s))
         self._note_ons = 0
 
     @property
@@ -66,12 +70,15 @@ class NoteOnGuard:
 
         Events held back from earlier blocks come first, at offset 0. From the first
         note-on without a token on, events wait for the next block; returns how many
-        note-ons were dropped (only when too many wait).
+        note-ons were dropped (only when too many wait, or too long).
         """
         self.tokens = min(self.burst, self.tokens + self.budget_s / self.cost_s)
         if self._waiting:
             events[:0] = self._waiting
             self._waiting = []
+            self._waited += 1
+        else:
+            self._waited = 0
         allowed = self.allowed
         count = 0
         cut = None
@@ -87,7 +94,7 @@ class NoteOnGuard:
             return 0
         rest = events[cut:]
         del events[cut:]
-        if len(rest) <= self.max_deferred:
+        if len(rest) <= self.max_deferred and self._waited < self._max_wait_blocks:
             self._waiting = [(0, status, d1, d2) for _, status, d1, d2 in rest]
             self.deferred += len(rest)
             return 0
