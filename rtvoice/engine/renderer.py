@@ -187,14 +187,20 @@ class Engine:
         return (velocity / 127.0) ** 2 * float(np.abs(amps) @ self._weight_abs)
 
     def _weights(self, lo: int, hi: int, out: np.ndarray) -> None:
-        """Pickup weights of slots lo..hi-1 into ``out``.
+        """Pickup weights of slots lo..hi-1 into ``out``: deriv * vel_sum + disp_sum per mode.
 
         Modes above the Nyquist margin need no mask here: their table rows are zero
-        (see :meth:`VoicePool.update_tables`).
+        (see :meth:`VoicePool.update_tables_at`).
         """
         w = out[lo:hi]
         np.multiply(self.pool.deriv[lo:hi], self._vel, out=w)
         w += self._disp
+
+    def _set_weights(self, idx: np.ndarray) -> None:
+        """The pickup weights of slots ``idx`` (as :meth:`_weights`), now and as the ramp's target."""
+        g = self.pool.deriv[idx] * self._vel + self._disp
+        self.pool.g[idx] = g
+        self._g_next[idx] = g
 
     # -- settings -----------------------------------------------------------------
     def apply_settings(self, settings: Settings) -> None:
@@ -453,9 +459,7 @@ class Engine:
         pool.sigma_hold[idx] = sigma
         pool.sigma[idx] = sigma
         self._set_bends(idx, np.array([self.channels.voice_bend(c) for c in ch]))
-        g = self.pool.deriv[idx] * self._vel + self._disp  # the pickup weights (see _weights)
-        pool.g[idx] = g
-        self._g_next[idx] = g
+        self._set_weights(idx)
 
     def _set_bends(self, idx: np.ndarray, bend: np.ndarray) -> None:
         pool = self.pool
@@ -545,9 +549,7 @@ class Engine:
         changed = np.flatnonzero(bend != pool.bend[:n])
         if changed.size:
             self._set_bends(changed, bend[changed])
-            g = pool.deriv[changed] * self._vel + self._disp
-            pool.g[changed] = g
-            self._g_next[changed] = g
+            self._set_weights(changed)
             for v in changed:
                 self._mark_tables(int(v))
             self._flush_tables()

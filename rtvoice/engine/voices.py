@@ -96,11 +96,6 @@ class VoicePool:
         self.n_active = 0
 
     # -- tables -----------------------------------------------------------------
-    def update_tables(self, lo: int, hi: int) -> None:
-        """Rebuild the power tables of slots lo..hi-1 from their sigma and omega."""
-        if hi > lo:
-            self.update_tables_at(slice(lo, hi))
-
     def update_tables_at(self, slots: slice | np.ndarray) -> None:
         """Rebuild the power tables of ``slots`` (a slice or an index array) from their sigma and omega.
 
