@@ -68,23 +68,25 @@ def _chord():
     return [(i // NOTES_PER_CHANNEL, 40 + i % NOTES_PER_CHANNEL) for i in range(VOICES)]
 
 
-def _perform(link, seconds: float, tick=None) -> None:
-    """Strum the chord every RESTRIKE_S and swing pickup 0 every SWING_S for ``seconds``."""
-    start = time.monotonic()
-    next_strike = start
-    swing = 0
-    while (now := time.monotonic()) - start < seconds:
-        if now >= next_strike:
+class _Performance:
+    """What the player does: a strum of the chord every RESTRIKE_S, a pickup swing at every step.
+
+    The caller steps it every SWING_S, sleeping between (with or without an event loop).
+    """
+
+    def __init__(self, link):
+        self.link = link
+        self.next_strike = time.monotonic()
+        self.swing = 0
+
+    def step(self) -> None:
+        if time.monotonic() >= self.next_strike:
             for ch, note in _chord():
-                link.note_off(note, ch)
-                link.note_on(note, 90, ch)
-            next_strike += RESTRIKE_S
-        swing += 1
-        link.set_value("pickup.0.position", 0.12 if swing % 2 else 0.16)
-        if tick is not None:
-            tick(SWING_S)
-        else:
-            time.sleep(SWING_S)
+                self.link.note_off(note, ch)
+                self.link.note_on(note, 90, ch)
+            self.next_strike += RESTRIKE_S
+        self.swing += 1
+        self.link.set_value("pickup.0.position", 0.12 if self.swing % 2 else 0.16)
 
 
 def _run_once(seconds: float, with_ui: bool) -> dict:
@@ -100,16 +102,9 @@ def _run_once(seconds: float, with_ui: bool) -> dict:
             async def drive():
                 app = RtvoiceApp(link, safety_note=False)
                 async with app.run_test(size=(120, 40)):
-                    loop_start = time.monotonic()
-                    strike, swing = loop_start, 0
-                    while time.monotonic() - loop_start < seconds:
-                        if time.monotonic() >= strike:
-                            for ch, note in _chord():
-                                link.note_off(note, ch)
-                                link.note_on(note, 90, ch)
-                            strike += RESTRIKE_S
-                        swing += 1
-                        link.set_value("pickup.0.position", 0.12 if swing % 2 else 0.16)
+                    performance, start = _Performance(link), time.monotonic()
+                    while time.monotonic() - start < seconds:
+                        performance.step()
                         await asyncio.sleep(SWING_S)
                     frames = app.frames
 
@@ -117,7 +112,10 @@ def _run_once(seconds: float, with_ui: bool) -> dict:
 
             frames = asyncio.run(drive())
         else:
-            _perform(link, seconds)
+            performance, start = _Performance(link), time.monotonic()
+            while time.monotonic() - start < seconds:
+                performance.step()
+                time.sleep(SWING_S)
             frames = 0
         audio = link.ready_info.get("audio_port", "")
     finally:
