@@ -254,6 +254,8 @@ def test_a_burst_of_quiet_notes_does_not_steal_a_loud_held_one():
 
 
 def test_a_voice_count_change_rebuilds_the_pool_and_notes_play_after_it():
+    # After the pool is rebuilt for a new voice and mode count, note 69 still sounds at 440 Hz
+    # (MIDI 1.0 note numbers, ISO 16 tuning).
     s = Settings.defaults().with_values({"voices": 16, "string.modes": 96})
     engine = Engine(s, FS, 256)
     engine.render([(0, 0x90, 60, 100)])
