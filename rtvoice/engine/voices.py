@@ -93,6 +93,11 @@ class VoicePool:
         self.fade_since = np.zeros(slots, np.int64)  # sample (since the engine started) its fade began
         self.omega1 = np.ones(slots)  # bent fundamental, rad/s: velocity-pickup reference
         self.bend = np.zeros(slots)  # semitones applied to omega
+        # np.zeros maps its pages lazily; write them now, so the first use of a slot (in the
+        # audio callback) takes no page faults.
+        for arr in (self.s, self.g, self.sigma, self.sigma_hold, self.omega_base, self.omega, self.p_block,
+                    self.logp, self.A_rows, self.B_t, self.deriv, self.audible):
+            arr.fill(0.0)
         self.n_active = 0
 
     # -- tables -----------------------------------------------------------------
