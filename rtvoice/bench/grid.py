@@ -5,9 +5,9 @@ from __future__ import annotations
 import time
 from dataclasses import dataclass
 
-from rtvoice.bench.limits import BareProduct, bare_factored_product
+from rtvoice.bench.limits import BareProduct, factored_product
 from rtvoice.bench.scenes import SAMPLE_RATE_HZ, HeldChord, chord_events, feature_settings
-from rtvoice.bench.timing import Timing, summarize, time_calls
+from rtvoice.bench.timing import Timing, summarize, time_calls, time_in_turns
 from rtvoice.engine.renderer import Engine
 
 
@@ -59,12 +59,13 @@ class GridPoint:
         }
 
 
-def time_engine(voices: int, modes: int, block: int, repeats: int, ramps: bool = True,
-                warmup: int = 20) -> tuple[Timing, int]:
-    """Median and tail of one block with ``voices`` held notes of ``modes`` modes."""
+def time_cell(voices: int, modes: int, block: int, repeats: int, ramps: bool = True,
+              warmup: int = 20) -> tuple[Timing, BareProduct, int]:
+    """The engine's block and the bare product of the same shape, timed in turns (see time_in_turns)."""
     chord = HeldChord.start(voices, modes, block, ramps)
-    timing = time_calls(chord.render, repeats, warmup, between=chord.swing)
-    return timing, chord.active
+    product, nbytes = factored_product(voices * modes, block)
+    engine_t, bare_t = time_in_turns([chord.render, product], repeats, warmup, between=[chord.swing, None])
+    return engine_t, BareProduct(voices * modes, block, bare_t, nbytes), chord.active
 
 
 def run_grid(voices_list, modes_list, blocks, repeats: int, ramps: bool = True,
@@ -73,8 +74,7 @@ def run_grid(voices_list, modes_list, blocks, repeats: int, ramps: bool = True,
     for block in blocks:
         for modes in modes_list:
             for voices in voices_list:
-                timing, active = time_engine(voices, modes, block, repeats, ramps)
-                bare = bare_factored_product(voices * modes, block, repeats)
+                timing, bare, active = time_cell(voices, modes, block, repeats, ramps)
                 points.append(GridPoint(voices, modes, block, ramps, active, timing, bare))
                 if progress:
                     progress(f"engine {voices}x{modes} @{block}: {timing.median_us:.0f} us")

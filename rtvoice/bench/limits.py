@@ -13,6 +13,7 @@ its time gives the memory bandwidth the machine sustains.
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
@@ -45,15 +46,20 @@ def _unit_phasors(rng: np.random.Generator, shape: tuple[int, ...]) -> np.ndarra
     return (0.99 * np.exp(1j * phase)).astype(np.complex64)
 
 
-def bare_factored_product(modes: int, block: int, repeats: int, warmup: int = 20, seed: int = 1) -> BareProduct:
-    """Time Y = C^T A, C (modes x N2) and A (modes x N1) complex64, output preallocated."""
+def factored_product(modes: int, block: int, seed: int = 1) -> tuple[Callable[[], object], int]:
+    """(a call computing Y = C^T A, the bytes it reads): C (modes x N2), A (modes x N1) complex64, Y preallocated."""
     n1, n2 = block_split(block)
     rng = np.random.default_rng(seed)
     a = _unit_phasors(rng, (modes, n1))
     c_t = _unit_phasors(rng, (n2, modes))  # row-major C^T: the layout BLAS reads fastest
     y = np.empty((n2, n1), np.complex64)
-    timing = time_calls(lambda: np.matmul(c_t, a, out=y), repeats, warmup)
-    return BareProduct(modes, block, timing, COMPLEX64_BYTES * modes * (n1 + n2))
+    return (lambda: np.matmul(c_t, a, out=y)), COMPLEX64_BYTES * modes * (n1 + n2)
+
+
+def bare_factored_product(modes: int, block: int, repeats: int, warmup: int = 20, seed: int = 1) -> BareProduct:
+    """Time the product of :func:`factored_product` alone."""
+    call, nbytes = factored_product(modes, block, seed)
+    return BareProduct(modes, block, time_calls(call, repeats, warmup), nbytes)
 
 
 def bare_table_product(modes: int, block: int, repeats: int, warmup: int = 5, seed: int = 2) -> BareProduct:

@@ -55,6 +55,36 @@ def time_calls(fn: Callable[[], object], repeats: int, warmup: int = 10,
     return summarize(samples)
 
 
+def time_in_turns(calls: list[Callable[[], object]], repeats: int, warmup: int = 10, turns: int = 10,
+                  between: list[Callable[[int], object] | None] | None = None) -> list[Timing]:
+    """Time several calls side by side: ``turns`` rounds, each timing every call ``repeats / turns`` times in a row.
+
+    A slow spell of a shared machine (its neighbours, its clock) then falls on every
+    call alike, so their ratio holds even when absolute times drift; the runs in a
+    row keep each call's own working set warm, as its real use would.
+    """
+    between = between or [None] * len(calls)
+    per_turn = max(1, repeats // turns)
+    samples: list[list[int]] = [[] for _ in calls]
+    clock = time.perf_counter_ns
+    count = [0] * len(calls)
+    for turn in range(turns):
+        for k, (fn, step) in enumerate(zip(calls, between, strict=True)):
+            for j in range(warmup if turn == 0 else 0):
+                if step is not None:
+                    step(j)
+                fn()
+                count[k] += 1
+            for _ in range(per_turn):
+                if step is not None:
+                    step(count[k])
+                t0 = clock()
+                fn()
+                samples[k].append(clock() - t0)
+                count[k] += 1
+    return [summarize(s) for s in samples]
+
+
 def wall_seconds(fn: Callable[[], object]) -> float:
     """Wall time of one call in seconds."""
     t0 = time.perf_counter_ns()

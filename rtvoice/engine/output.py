@@ -18,75 +18,29 @@ CEILING = 10.0 ** (CEILING_DBFS / 20.0)  # 0.891251 linear
 
 
 class BlockFilter:
-    """A linear filter (b, a) applied block by block with carried state.
+    """A linear filter (b, a) applied block by block with carried state (scipy.signal.lfilter's ``zi``).
 
-    New coefficients keep the state, so a change of resonance while notes ring
-    does not restart the filter. Given ``block_frames`` (up to
-    :attr:`MATRIX_MAX_FRAMES`), blocks of that size run as one matrix product:
-    the block's output and next state are linear in its input and state,
-    [y; z'] = M [x; z], with M built once from ``scipy.signal.lfilter`` itself,
-    so the state z is lfilter's own ``zi`` and the two paths can take turns.
-    One small product costs about half of lfilter's per-call set-up at these
-    sizes; at 256 frames lfilter is as fast (measured). Building M costs about
-    0.2 ms at 128 frames, so after new coefficients the filter runs on lfilter
-    and builds M only once they have held for :attr:`REBUILD_AFTER_BLOCKS` blocks
-    (a controller sweeping the resonance never pays for it).
+    New coefficients keep the state, so a change of resonance does not restart the
+    filter. The engine folds its output filter into the modes instead
+    (:mod:`rtvoice.engine.modal_filter`); this one serves the survey's model and the
+    benchmark's baselines, which filter samples.
     """
 
-    MATRIX_MAX_FRAMES = 128
-    REBUILD_AFTER_BLOCKS = 8
-
-    def __init__(self, b: np.ndarray, a: np.ndarray, block_frames: int | None = None):
+    def __init__(self, b: np.ndarray, a: np.ndarray):
         self.b, self.a = np.asarray(b, float), np.asarray(a, float)
         self.zi = np.zeros(max(len(self.a), len(self.b)) - 1)
-        use_matrix = block_frames is not None and 0 < block_frames <= self.MATRIX_MAX_FRAMES
-        self._block = int(block_frames) if use_matrix else 0
-        self._matrix: np.ndarray | None = None
-        self._bufs: tuple[np.ndarray, np.ndarray] | None = None
-        self._held_blocks = 0  # blocks since the coefficients last changed
-        if self._block:
-            self._build_matrix()
 
     def set_coefficients(self, b: np.ndarray, a: np.ndarray) -> None:
         b, a = np.asarray(b, float), np.asarray(a, float)
         if len(b) != len(self.b) or len(a) != len(self.a):
             self.zi = np.zeros(max(len(a), len(b)) - 1)
-        else:
-            self.zi = self.zi.copy()  # detach from the matrix path's buffers before they are rebuilt
         self.b, self.a = b, a
-        self._matrix = None
-        self._held_blocks = 0
-
-    def _build_matrix(self) -> None:
-        n, order = self._block, self.zi.size
-        y_x, z_x = scipy.signal.lfilter(self.b, self.a, np.eye(n), axis=0, zi=np.zeros((order, n)))
-        y_z, z_z = scipy.signal.lfilter(self.b, self.a, np.zeros((n, order)), axis=0, zi=np.eye(order))
-        self._matrix = np.block([[y_x, y_z], [z_x, z_z]])
-        bufs = (np.zeros(n + order), np.zeros(n + order))
-        bufs[0][n:] = self.zi
-        self._bufs = bufs
-        self.zi = bufs[0][n:]
 
     def process(self, x: np.ndarray, gain: float = 1.0) -> None:
-        """Filter ``x`` in place and scale the result by ``gain`` (free on the matrix path)."""
-        n = x.size
-        if n == self._block and self._matrix is None:
-            self._held_blocks += 1
-            if self._held_blocks > self.REBUILD_AFTER_BLOCKS:
-                self._build_matrix()
-        if n == self._block and self._matrix is not None:
-            x_in, x_out = self._bufs
-            x_in[:n] = x
-            np.matmul(self._matrix, x_in, out=x_out)
-            np.multiply(x_out[:n], gain, out=x)
-            self._bufs = (x_out, x_in)
-            self.zi = x_out[n:]
-        else:
-            zi = self.zi
-            x[:], zf = scipy.signal.lfilter(self.b, self.a, x, zi=zi)
-            zi[:] = zf  # in place: on the matrix path zi is a view of its state buffer
-            if gain != 1.0:
-                x *= gain
+        """Filter ``x`` in place and scale the result by ``gain``."""
+        x[:], self.zi = scipy.signal.lfilter(self.b, self.a, x, zi=self.zi)
+        if gain != 1.0:
+            x *= gain
         if not all(map(math.isfinite, self.zi)):  # a few values: cheaper in Python than a ufunc
             self.zi[:] = 0.0
 
@@ -101,10 +55,15 @@ def electronics_filter(resonance_hz: float, q: float, sample_rate_hz: float) -> 
     return BlockFilter(*lowpass_biquad(resonance_hz, q, sample_rate_hz))
 
 
-def dc_blocker(sample_rate_hz: float, corner_hz: float = 5.0) -> BlockFilter:
-    """y[n] = x[n] - x[n-1] + R y[n-1] with R from the corner frequency (Smith, Introduction to Digital Filters)."""
+def dc_blocker_coefficients(sample_rate_hz: float, corner_hz: float = 5.0) -> tuple[np.ndarray, np.ndarray]:
+    """(b, a) of y[n] = x[n] - x[n-1] + R y[n-1], R = exp(-2 pi f_c / fs) (Smith, Introduction to Digital Filters)."""
     r = math.exp(-2 * math.pi * corner_hz / sample_rate_hz)
-    return BlockFilter([1.0, -1.0], [1.0, -r])
+    return np.array([1.0, -1.0]), np.array([1.0, -r])
+
+
+def dc_blocker(sample_rate_hz: float, corner_hz: float = 5.0) -> BlockFilter:
+    """The DC blocker of :func:`dc_blocker_coefficients` as a block filter."""
+    return BlockFilter(*dc_blocker_coefficients(sample_rate_hz, corner_hz))
 
 
 class Limiter:

@@ -11,6 +11,11 @@ instead of streaming an N x M table per block. Voices touched by an event inside
 the block (note-on, note-off, steal) are rendered on an exact per-voice path with
 the event on its sample. Live pickup and gain changes are smoothed and ramped
 linearly across the block, so they neither click nor zipper.
+
+The output filter (output scale, electronics, DC blocker) acts on modes, not on
+samples: its steady gain H(p) rides on each mode's weight, and its free response
+after each change is added by :class:`~rtvoice.engine.modal_filter.ModalFilter`,
+so no block is filtered (the same output as filtering the samples).
 """
 
 from __future__ import annotations
@@ -22,8 +27,9 @@ from dataclasses import dataclass
 import numpy as np
 
 from rtvoice.engine import midi
+from rtvoice.engine.modal_filter import ModalFilter
 from rtvoice.engine.notes import harmonic_stretch, initial_amplitudes
-from rtvoice.engine.output import CEILING, BlockFilter, Limiter, dc_blocker
+from rtvoice.engine.output import CEILING, Limiter, dc_blocker_coefficients
 from rtvoice.engine.pickup_sums import PickupSums
 from rtvoice.engine.settings import Settings
 from rtvoice.engine.voices import FADING, HELD, RELEASED, SOUNDING, VoicePool
@@ -88,14 +94,14 @@ class Engine:
         self._exact = np.zeros(self.block)
         self._ramp = np.arange(1, self.block + 1) / self.block
         self._gain_ramp = np.empty(self.block)
-        self._dc = dc_blocker(self.fs)
         self.limiter = Limiter(self.fs, self.block)
-        self._post: BlockFilter | None = None  # coil filter and DC blocker in one
+        self._filter: ModalFilter | None = None  # output scale, coil filter and DC blocker, on the modes
         self._gain = self._gain_target = 10 ** (self.settings.get("output.gain_db") / 20)
         self._pickups_now = [dict(p) for p in self.settings.pickups]
         self._pickups_settled = True  # now == target: the smoothing step has nothing to do
         self._exact_used = False  # some voice wrote into self._exact this block
         self._bend_dirty = False
+        self._refolding = False  # new output-filter gains wait in _gf_next (see _prepare_electronics)
         self._pending_rebuild: Settings | None = None
         self._build_pool()
         self._prepare_notes()
@@ -110,7 +116,8 @@ class Engine:
         self.pool = VoicePool(voices + max(2, voices // 4), modes, self.block, self.fs)
         slots, modes = self.pool.slots, self.pool.modes
         n1, n2 = self.pool.n1, self.pool.n2
-        self._g_next = np.zeros((slots, modes), complex)
+        self._g_next = np.zeros((slots, modes), complex)  # the ramp's target pickup weights
+        self._gf_next = np.zeros((slots, modes), complex)  # and their product weights (g h)
         self._d64 = np.zeros((2, slots * modes), np.complex64)  # g s now, and with the ramp's target g
         self._ct = np.zeros((2 * n2, slots * modes), np.complex64)  # C^T: rows B[j] * d, contiguous
         self._y = np.zeros((2 * n2, n1), np.float32)
@@ -147,21 +154,36 @@ class Engine:
         """Initial mode amplitudes of an excitation at ``position`` with ``width`` (per-note control)."""
         return initial_amplitudes(self.settings, self.pool.modes, position, width)
 
-    def _prepare_electronics(self) -> None:
-        """The coil-and-cable low-pass and the DC blocker, cascaded into one filter (one call per block).
-
-        New coefficients keep the state (as the coil filter alone did), so a change of
-        resonance while notes ring does not restart the filter.
-        """
+    def output_filter(self) -> tuple[np.ndarray, np.ndarray]:
+        """(b, a) of the whole linear output stage, as for scipy.signal.lfilter: output scale, coil and cable
+        low-pass (when not bypassed) and DC blocker, before the output gain and the limiter."""
         f_r, q = self.resonance()
-        b, a = self._dc.b * OUTPUT_SCALE, self._dc.a  # the output scale rides on the filter
+        b, a = dc_blocker_coefficients(self.fs)
+        b = b * OUTPUT_SCALE
         if f_r > 0:
             coil_b, coil_a = lowpass_biquad(f_r, q, self.fs)
             b, a = np.convolve(coil_b, b), np.convolve(coil_a, a)
-        if self._post is None:
-            self._post = BlockFilter(b, a, self.block)
-        else:
-            self._post.set_coefficients(b, a)
+        return b, a
+
+    def _prepare_electronics(self) -> None:
+        """The output filter, folded into the mode weights.
+
+        A change while notes ring does not click: the ringing modes' weights ramp
+        from the old filter's gains to the new one's across the next block (as a
+        moving pickup's do), and the new filter carries on the old one's free response.
+        """
+        new = ModalFilter(*self.output_filter(), self.block)
+        old, self._filter = self._filter, new
+        if old is None:
+            return
+        new.take_free_response(old)
+        pool = self.pool
+        n = pool.n_active
+        if n:
+            h = new.gain(np.exp(pool.logp[:n]))
+            pool.h[:n] = h
+            np.multiply(self._g_next[:n], h, out=self._gf_next[:n])
+            self._refolding = True  # the next block ramps pool.gf to _gf_next
 
     def resonance(self) -> tuple[float, float]:
         """(f_r in Hz, Q) of the electronics now in use; f_r = 0 when bypassed."""
@@ -186,21 +208,38 @@ class Engine:
         amps = self._initial if initial is None else initial
         return (velocity / 127.0) ** 2 * float(np.abs(amps) @ self._weight_abs)
 
-    def _weights(self, lo: int, hi: int, out: np.ndarray) -> None:
-        """Pickup weights of slots lo..hi-1 into ``out``: deriv * vel_sum + disp_sum per mode.
+    def _ramp_weights(self, n: int) -> None:
+        """The ramp's target weights of slots 0..n-1: deriv * vel_sum + disp_sum per mode, and times h.
 
         Modes above the Nyquist margin need no mask here: their table rows are zero
         (see :meth:`VoicePool.update_tables_at`).
         """
-        w = out[lo:hi]
-        np.multiply(self.pool.deriv[lo:hi], self._vel, out=w)
+        w = self._g_next[:n]
+        np.multiply(self.pool.deriv[:n], self._vel, out=w)
         w += self._disp
+        np.multiply(w, self.pool.h[:n], out=self._gf_next[:n])
 
     def _set_weights(self, idx: np.ndarray) -> None:
-        """The pickup weights of slots ``idx`` (as :meth:`_weights`), now and as the ramp's target."""
+        """The pickup weights of slots ``idx`` (as :meth:`_ramp_weights`), now and as the ramp's target.
+
+        Their product weights follow when their tables are rebuilt (:meth:`_flush_tables`).
+        """
         g = self.pool.deriv[idx] * self._vel + self._disp
         self.pool.g[idx] = g
         self._g_next[idx] = g
+
+    def _fold(self, slots: slice | np.ndarray, p: np.ndarray) -> None:
+        """The output filter's gain H(p) at the modes of ``slots`` (their p given), and their product weights."""
+        pool = self.pool
+        h = self._filter.gain(p)
+        pool.h[slots] = h
+        pool.gf[slots] = pool.g[slots] * h
+        self._gf_next[slots] = self._g_next[slots] * h
+
+    def _steady_states(self, idx: np.ndarray) -> np.ndarray:
+        """The output filter's steady state of each slot in ``idx`` (shape (len(idx), order)), from its modes now."""
+        pool = self.pool
+        return self._filter.steady_state(np.exp(pool.logp[idx]), pool.g[idx] * pool.s[idx] * pool.audible[idx])
 
     # -- settings -----------------------------------------------------------------
     def apply_settings(self, settings: Settings) -> None:
@@ -242,13 +281,17 @@ class Engine:
         if self._exact_used:
             self._exact[:] = 0.0
             self._exact_used = False
-        ramping = self._step_pickups()
+        ramping = self._step_pickups() or self._refolding
+        self._refolding = False
         for offset, status, d1, d2 in events:
             self._handle(min(max(int(offset), 0), n_blk - 1), status, d1, d2)
         self._apply_changes(ramping)
         self._render_bulk(ramping)
+        self._filter.render_free(self._out)
         if ramping:
-            pool.g[: pool.n_active] = self._g_next[: pool.n_active]
+            n = pool.n_active
+            pool.g[:n] = self._g_next[:n]
+            pool.gf[:n] = self._gf_next[:n]
         if self._bend_dirty:
             self._apply_bends()
         out = self._finish()
@@ -316,6 +359,8 @@ class Engine:
             for step in range(depth):
                 now = [q[step] for q in queues.values() if len(q) > step]
                 self._render_segments([c[0] for c in now], [c[1] for c in now], ramping)
+                idx = np.array([c[0] for c in now])
+                before = self._steady_states(idx)
                 starts = [c for c in now if c[2] == START]
                 if starts:
                     self._start_voices(starts)
@@ -326,6 +371,12 @@ class Engine:
                         np.maximum(self.pool.sigma[v], LN_1000 / FADE_T60_S, out=self.pool.sigma[v])
                     self._mark_tables(v)
                 self._flush_tables()
+                # The output filter's free response to each change, from where its voice stands (with
+                # events in time order, the change's own sample).
+                jumps = before - self._steady_states(idx)
+                for i, c in enumerate(now):
+                    self._filter.kick(jumps[i], max(c[1], int(self._upto[c[0]])), self._exact)
+                self._exact_used = True
         # A voice changed only at sample 0 is as good as untouched: the block product renders it.
         touched = self._touched_list
         if any(self._upto[v] == 0 for v in touched):
@@ -348,9 +399,9 @@ class Engine:
         if idx.size == 0:
             return
         s = pool.s[idx]
-        y = pool.segments(idx, pool.g[idx] * s, int(count.max()))
+        y = pool.segments(idx, pool.gf[idx] * s, int(count.max()))
         if ramping:
-            y_next = pool.segments(idx, self._g_next[idx] * s, int(count.max()))
+            y_next = pool.segments(idx, self._gf_next[idx] * s, int(count.max()))
             y_next -= y
             y_next *= self._ramp_ext[start[:, None] + self._sample_index[: y.shape[1]]]
             y += y_next
@@ -372,7 +423,8 @@ class Engine:
 
     def _flush_tables(self) -> None:
         if self._dirty_list:
-            self.pool.update_tables_at(np.array(self._dirty_list))
+            idx = np.array(self._dirty_list)
+            self._fold(idx, self.pool.update_tables_at(idx))
             self._dirty[self._dirty_list] = False
             self._dirty_list.clear()
 
@@ -548,11 +600,13 @@ class Engine:
         bend = np.array([self.channels.voice_bend(int(c)) for c in pool.channel[:n]])
         changed = np.flatnonzero(bend != pool.bend[:n])
         if changed.size:
+            before = self._steady_states(changed)
             self._set_bends(changed, bend[changed])
             self._set_weights(changed)
             for v in changed:
                 self._mark_tables(int(v))
             self._flush_tables()
+            self._filter.jump((before - self._steady_states(changed)).sum(axis=0))
 
     # -- live parameters ----------------------------------------------------------
     def _step_pickups(self) -> bool:
@@ -579,7 +633,7 @@ class Engine:
             self._pickups_settled = True
             return False
         self._prepare_pickups()
-        self._weights(0, self.pool.n_active, self._g_next)
+        self._ramp_weights(self.pool.n_active)
         return True
 
     def _finish(self) -> np.ndarray:
@@ -588,12 +642,11 @@ class Engine:
         g1 = g0 + (self._gain_target - g0) * self._alpha
         if abs(g1 - self._gain_target) < 1e-6 * self._gain_target:
             g1 = self._gain_target
-        # Output scale, electronics and DC blocker are linear and time-invariant, so they may
-        # come before the gain ramp; a steady gain rides on the filter at no cost.
+        # Output scale, electronics and DC blocker are already on the modes (see _prepare_electronics).
         if g0 == g1:
-            self._post.process(out, g1)
+            if g1 != 1.0:
+                out *= g1
         else:
-            self._post.process(out)
             np.multiply(self._ramp, g1 - g0, out=self._gain_ramp)
             self._gain_ramp += g0
             out *= self._gain_ramp
@@ -603,7 +656,7 @@ class Engine:
         if not math.isfinite(peak):  # a NaN or inf sample somewhere in the block
             self._drop_bad_voices()
             out[:] = 0.0
-            self._post.reset()
+            self._filter.reset()
             peak, peak_at = 0.0, 0
         limiter.apply(out, peak, peak_at)
         st = self.stats
@@ -626,6 +679,9 @@ class Engine:
             pool.clear_tiny_modes()
             bound = pool.bound() * OUTPUT_SCALE * max(self._gain, 1.0)
             dead = np.flatnonzero(~(bound >= RETIRE_LEVEL))  # catches NaN too
+            heard = dead[np.isfinite(bound[dead])]
+            if heard.size:  # their input to the output filter stops: its state carries on freely
+                self._filter.jump(self._steady_states(heard).sum(axis=0))
             for v in dead[::-1]:
                 if not np.isfinite(bound[v]):
                     self.stats.dropped_bad += 1
@@ -658,7 +714,7 @@ class _BulkViews:
     def __init__(self, engine: Engine, n: int):
         pool = engine.pool
         m, n2 = n * pool.modes, pool.n2
-        self.g = (pool.g[:n], engine._g_next[:n])
+        self.g = (pool.gf[:n], engine._gf_next[:n])  # the product weights, now and the ramp's target
         self.s, self.p_block = pool.s[:n], pool.p_block[:n]
         self.d = tuple(engine._d64[i, :m] for i in range(2))
         self.d_by_voice = tuple(d.reshape(n, pool.modes) for d in self.d)

@@ -4,7 +4,9 @@ Slots 0..n_active-1 are sounding; a retired voice's slot is refilled from the
 last active slot, so all work runs over one contiguous prefix and idle voices
 cost nothing. Each mode m of slot v has a complex amplitude s[v, m] (double
 precision: nothing drifts over minutes) that advances by p = exp((-sigma + i w) / fs)
-per sample, and a complex pickup weight g[v, m].
+per sample, a complex pickup weight g[v, m], the output filter's steady gain
+h[v, m] = H(p) (see :mod:`rtvoice.engine.modal_filter`) and the weight the block
+product uses, gf = g h.
 
 Within a block of N samples, n = n1 + N1 n2 and p^n = A[n1] B[n2] with
 A[j] = p^j (j < N1) and B[j] = p^(N1 j) (j <= N2). That turns the block's sum over
@@ -72,7 +74,9 @@ class VoicePool:
         self.max_sigma = MAX_NEPERS_PER_BLOCK * self.fs / (self.n1 * self.n2)  # 1/s, see update_tables_at
         shape = (slots, modes)
         self.s = np.zeros(shape, complex)
-        self.g = np.zeros(shape, complex)
+        self.g = np.zeros(shape, complex)  # pickup weight
+        self.h = np.zeros(shape, complex)  # the output filter's gain H(p) at each mode
+        self.gf = np.zeros(shape, complex)  # g h: what the block product weighs each mode with
         self.sigma = np.zeros(shape)  # current decay rate, 1/s
         self.sigma_hold = np.zeros(shape)  # decay rate while the note is held
         self.omega_base = np.zeros(shape)  # unbent angular frequency, rad/s
@@ -95,14 +99,16 @@ class VoicePool:
         self.bend = np.zeros(slots)  # semitones applied to omega
         # np.zeros maps its pages lazily; write them now, so the first use of a slot (in the
         # audio callback) takes no page faults.
-        for arr in (self.s, self.g, self.sigma, self.sigma_hold, self.omega_base, self.omega, self.p_block,
-                    self.logp, self.A_rows, self.B_t, self.deriv, self.audible):
+        for arr in (self.s, self.g, self.h, self.gf, self.sigma, self.sigma_hold, self.omega_base, self.omega,
+                    self.p_block, self.logp, self.A_rows, self.B_t, self.deriv, self.audible):
             arr.fill(0.0)
         self.n_active = 0
 
     # -- tables -----------------------------------------------------------------
-    def update_tables_at(self, slots: slice | np.ndarray) -> None:
+    def update_tables_at(self, slots: slice | np.ndarray) -> np.ndarray:
         """Rebuild the power tables of ``slots`` (a slice or an index array) from their sigma and omega.
+
+        Returns p, the per-sample factor of each of their modes (as the tables hold it).
 
         A mode at or above :attr:`omega_limit` (a bend can push one there) gets zero
         rows in A, so no product hears it and the pickup weights need no mask; its
@@ -129,6 +135,7 @@ class VoicePool:
         self.A_rows[slots, :, 1, :] = -rows.imag
         self.B_t[:, slots, :] = b
         self.p_block[slots] = np.exp(logp * self.block)
+        return p
 
     def segments(self, slots: np.ndarray, d: np.ndarray, count: int) -> np.ndarray:
         """Re of sum over modes m of d[i, m] p[m]^j for each slot i and j = 0..count-1 (count <= N1 * N2).
@@ -156,7 +163,7 @@ class VoicePool:
         last = self.n_active - 1
         moved = -1
         if v != last:
-            for arr in (self.s, self.g, self.sigma, self.sigma_hold, self.omega_base, self.omega,
+            for arr in (self.s, self.g, self.h, self.gf, self.sigma, self.sigma_hold, self.omega_base, self.omega,
                         self.p_block, self.logp, self.A_rows, self.deriv, self.audible, self.state, self.note,
                         self.channel, self.order, self.fade_since, self.omega1, self.bend, self.velocity):
                 arr[v] = arr[last]
@@ -164,6 +171,7 @@ class VoicePool:
             moved = last
         self.s[last] = 0.0
         self.g[last] = 0.0
+        self.gf[last] = 0.0
         self.state[last] = FREE
         self.n_active -= 1
         return moved
