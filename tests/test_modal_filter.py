@@ -169,3 +169,23 @@ def test_an_electronics_change_while_a_note_rings_does_not_click():
         at = d2[change * 128 - 4: change * 128 + 16].max()
         before, after = d2[(change - 6) * 128:(change - 1) * 128].max(), d2[(change + 2) * 128:(change + 8) * 128].max()
         assert at <= 1.2 * max(before, after), (change, at, before, after, around.max())
+
+
+@settings(max_examples=30, deadline=None)
+@given(count=st.integers(1, 12), block=st.sampled_from([1, 7, 64, 128]), seed=st.integers(0, 2**16))
+def test_many_jumps_at_once_sum_as_one_at_a_time(count, block, seed):
+    # kicks() (one convolution per state component) against kick() called per jump: the same sum.
+    rng = np.random.default_rng(seed)
+    b, a = lowpass_biquad(float(rng.uniform(500, 9000)), float(rng.uniform(0.6, 8)), FS)
+    b, a = np.convolve(b, [1.0, -1.0]), np.convolve(a, [1.0, -0.9995])
+    one, many = ModalFilter(b, a, block), ModalFilter(b, a, block)
+    dx, at = rng.standard_normal((count, 3)), rng.integers(0, block, count)
+    out_one, out_many = np.zeros(block), np.zeros(block)
+    for i in range(count):
+        one.kick(dx[i], int(at[i]), out_one)
+    many.kicks(dx, at, out_many)
+    np.testing.assert_allclose(out_many, out_one, rtol=1e-9, atol=1e-12)
+    next_one, next_many = np.zeros(block), np.zeros(block)
+    one.render_free(next_one)
+    many.render_free(next_many)
+    np.testing.assert_allclose(next_many, next_one, rtol=1e-9, atol=1e-12)

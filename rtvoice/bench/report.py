@@ -123,16 +123,20 @@ def render_text(r: dict) -> str:
     rt = r["realtime_host"]
     out += ["", "## Real-time callback under the JACK dummy server (the host, every feature on)", ""]
     if rt.get("available"):
-        out.append(f"- {rt['voices']} voices x {rt['modes']} modes, {rt['period_frames']}-frame periods, "
-                   "a chord strummed every 2 s and a pickup swung 20 times a second; the server ran with "
-                   f"{rt.get('server_scheduling', 'ordinary')} scheduling")
-        for key, label in (("without_ui", "headless"), ("with_ui", "with the terminal UI drawing")):
-            m = rt[key]
-            extra = f", {m['ui_frames_drawn']} UI frames" if "ui_frames_drawn" in m else ""
-            render = (f" (the engine's render: median {_pct(m['render_median'])}, p99 {_pct(m['render_p99'])})"
-                      if m.get("render_median") is not None else "")
-            out.append(f"- {label}: callback median {_pct(m['load_median'])}, p99 {_pct(m['load_p99'])} of the "
-                       f"period{render} over {m['blocks']} blocks in {m['seconds']} s; xruns {m['xruns']}{extra}")
+        out.append(f"- {rt['voices']} voices x {rt['modes']} modes, {rt['period_frames']}-frame periods; the server "
+                   f"ran with {rt.get('server_scheduling', 'ordinary')} scheduling")
+        scenes = (("ringing", "a chord of 32 notes strummed every 2 s (the target's scene)"),
+                  ("swinging", "the same with a pickup swung 20 times a second"))
+        for scene, what in scenes:
+            out.append(f"- {what}:")
+            for key, label in (("without_ui", "headless"), ("with_ui", "with the terminal UI drawing")):
+                m = rt[scene][key]
+                extra = f", {m['ui_frames_drawn']} UI frames" if "ui_frames_drawn" in m else ""
+                render = (f" (the engine's render: median {_pct(m['render_median'])}, p99 {_pct(m['render_p99'])})"
+                          if m.get("render_median") is not None else "")
+                out.append(f"  - {label}: callback median {_pct(m['load_median'])}, p99 {_pct(m['load_p99'])} of "
+                           f"the period{render} over {m['blocks']} blocks in {m['seconds']} s; xruns "
+                           f"{m['xruns']}{extra}")
     else:
         out.append(f"- not measured: {rt['reason']}")
     out += _profile_text(r)

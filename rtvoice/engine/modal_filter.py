@@ -78,25 +78,32 @@ class ModalFilter:
             den = den * p + coef
         return den
 
+    def resolvent(self, p: np.ndarray) -> np.ndarray:
+        """(p I - F)^{-1} e1 = [p^(n-1), ..., p, 1] / (p^n A(1/p)) for each p: shape p.shape + (order,).
+
+        The state a mode p^n of unit amplitude holds at n = 0 (the engine keeps it per mode).
+        """
+        r = np.empty(p.shape + (self.order,), complex)
+        r[..., -1] = 1.0 / self._denominator(p)
+        for i in range(self.order - 2, -1, -1):
+            np.multiply(r[..., i + 1], p, out=r[..., i])
+        return r
+
+    def gain_from(self, r: np.ndarray) -> np.ndarray:
+        """H(p) = C (p I - F)^{-1} e1 + D from :meth:`resolvent`'s ``r``."""
+        return r @ self.c + self.d
+
     def gain(self, p: np.ndarray) -> np.ndarray:
         """H(p): the complex factor the filter applies to a mode p^n once it is under way."""
-        num = np.full(p.shape, self.c[0], complex)
-        for coef in self.c[1:]:
-            num = num * p + coef
-        return num / self._denominator(p) + self.d
+        return self.gain_from(self.resolvent(p))
 
-    def steady_state(self, p: np.ndarray, c: np.ndarray) -> np.ndarray:
-        """Re of the state that modes c p^n hold at n = 0, summed over the last axis: shape p.shape[:-1] + (order,).
+    @staticmethod
+    def steady_state(r: np.ndarray, c: np.ndarray) -> np.ndarray:
+        """Re of the state modes of amplitude ``c`` (resolvents ``r``) hold now, summed over modes (the last axis of c).
 
-        (p I - F)^{-1} e1 = [p^(n-1), ..., p, 1] / (p^n A(1/p)) in this form.
+        Shape c.shape[:-1] + (order,).
         """
-        w = c / self._denominator(p)
-        out = np.empty(p.shape[:-1] + (self.order,))
-        for i in range(self.order - 1, -1, -1):  # component i holds w p^(order-1-i)
-            out[..., i] = w.real.sum(axis=-1)
-            if i:
-                w = w * p
-        return out
+        return np.einsum("...m,...mk->...k", c, r).real
 
     # -- free response ------------------------------------------------------------
     def kick(self, dx: np.ndarray, at: int, out: np.ndarray) -> None:
@@ -106,6 +113,22 @@ class ModalFilter:
         np.matmul(self._heard[:n], dx, out=free)
         out[at:] += free
         self._x_end += self._powers[n] @ dx
+        self._kicked = True
+
+    def kicks(self, dx: np.ndarray, at: np.ndarray, out: np.ndarray) -> None:
+        """:meth:`kick` for many jumps at once: ``dx`` of shape (count, order), ``at`` their samples.
+
+        The free responses sum as one convolution per state component of the jumps
+        laid out on their samples with the filter's response: a few calls, whatever the count.
+        """
+        if len(at) <= 4:
+            for i in range(len(at)):
+                self.kick(dx[i], int(at[i]), out)
+            return
+        for k in range(self.order):
+            impulses = np.bincount(at, weights=dx[:, k], minlength=self.block)
+            out += np.convolve(impulses, self._heard[:, k])[: self.block]
+        self._x_end += np.einsum("kij,kj->i", self._powers[self.block - np.asarray(at)], dx)
         self._kicked = True
 
     def jump(self, dx: np.ndarray) -> None:

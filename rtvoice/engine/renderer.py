@@ -180,7 +180,10 @@ class Engine:
         pool = self.pool
         n = pool.n_active
         if n:
-            h = new.gain(np.exp(pool.logp[:n]))
+            r = new.resolvent(pool.p[:n])
+            h = new.gain_from(r)
+            r *= pool.audible[:n, :, None]
+            pool.r[:n] = r
             pool.h[:n] = h
             np.multiply(self._g_next[:n], h, out=self._gf_next[:n])
             self._refolding = True  # the next block ramps pool.gf to _gf_next
@@ -229,9 +232,12 @@ class Engine:
         self._g_next[idx] = g
 
     def _fold(self, slots: slice | np.ndarray, p: np.ndarray) -> None:
-        """The output filter's gain H(p) at the modes of ``slots`` (their p given), and their product weights."""
+        """The output filter at the modes of ``slots`` (their p given): resolvents, gains H(p), product weights."""
         pool = self.pool
-        h = self._filter.gain(p)
+        r = self._filter.resolvent(p)
+        h = self._filter.gain_from(r)
+        r *= pool.audible[slots][..., None]  # a mode not heard is no input to the filter
+        pool.r[slots] = r
         pool.h[slots] = h
         pool.gf[slots] = pool.g[slots] * h
         self._gf_next[slots] = self._g_next[slots] * h
@@ -239,7 +245,7 @@ class Engine:
     def _steady_states(self, idx: np.ndarray) -> np.ndarray:
         """The output filter's steady state of each slot in ``idx`` (shape (len(idx), order)), from its modes now."""
         pool = self.pool
-        return self._filter.steady_state(np.exp(pool.logp[idx]), pool.g[idx] * pool.s[idx] * pool.audible[idx])
+        return self._filter.steady_state(pool.r[idx], pool.g[idx] * pool.s[idx])
 
     # -- settings -----------------------------------------------------------------
     def apply_settings(self, settings: Settings) -> None:
@@ -360,7 +366,11 @@ class Engine:
                 now = [q[step] for q in queues.values() if len(q) > step]
                 self._render_segments([c[0] for c in now], [c[1] for c in now], ramping)
                 idx = np.array([c[0] for c in now])
-                before = self._steady_states(idx)
+                # A fresh slot starts from silence: its steady state before is zero.
+                stale = [i for i, c in enumerate(now) if not (c[2] == START and c[3][4])]
+                before = np.zeros((len(now), self._filter.order))
+                if stale:
+                    before[stale] = self._steady_states(idx[stale])
                 starts = [c for c in now if c[2] == START]
                 if starts:
                     self._start_voices(starts)
@@ -373,9 +383,8 @@ class Engine:
                 self._flush_tables()
                 # The output filter's free response to each change, from where its voice stands (with
                 # events in time order, the change's own sample).
-                jumps = before - self._steady_states(idx)
-                for i, c in enumerate(now):
-                    self._filter.kick(jumps[i], max(c[1], int(self._upto[c[0]])), self._exact)
+                at = np.maximum([c[1] for c in now], self._upto[idx])
+                self._filter.kicks(before - self._steady_states(idx), at, self._exact)
                 self._exact_used = True
         # A voice changed only at sample 0 is as good as untouched: the block product renders it.
         touched = self._touched_list
@@ -461,7 +470,8 @@ class Engine:
             self._fade(int(quiet), at)
             self.stats.stolen += 1
         v = pool.allocate()
-        if v < 0:  # every slot busy: reuse the voice that has been fading longest (so the quietest)
+        fresh = v >= 0
+        if not fresh:  # every slot busy: reuse the voice that has been fading longest (so the quietest)
             fading = pool.state[: pool.n_active] == FADING
             v = int(np.argmin(np.where(fading, pool.fade_since[: pool.n_active], np.iinfo(np.int64).max)))
             self._touch(v)
@@ -475,7 +485,7 @@ class Engine:
         pool.order[v] = self._order
         initial = self.excitation_hook(ch) if self.excitation_hook is not None else None
         self._bound[v] = self._start_bound(velocity, initial)  # its level is not set up yet
-        self._changes.append((v, at, START, (ch, note, velocity, initial)))
+        self._changes.append((v, at, START, (ch, note, velocity, initial, fresh)))
 
     def _bounds(self) -> np.ndarray:
         """Level bounds of the slots for stealing, computed once per block.

@@ -77,10 +77,12 @@ class VoicePool:
         self.g = np.zeros(shape, complex)  # pickup weight
         self.h = np.zeros(shape, complex)  # the output filter's gain H(p) at each mode
         self.gf = np.zeros(shape, complex)  # g h: what the block product weighs each mode with
+        self.r = np.zeros(shape + (3,), complex)  # the output filter's resolvent at p; 0 when not heard (ModalFilter)
         self.sigma = np.zeros(shape)  # current decay rate, 1/s
         self.sigma_hold = np.zeros(shape)  # decay rate while the note is held
         self.omega_base = np.zeros(shape)  # unbent angular frequency, rad/s
         self.omega = np.zeros(shape)  # bent angular frequency, rad/s
+        self.p = np.zeros(shape, complex)  # p, as the tables hold it
         self.p_block = np.zeros(shape, complex)  # p^N
         self.logp = np.zeros(shape, complex)  # log p = (-sigma + i omega) / fs
         # A_rows[v, m] = [Re A[v, m, :], -Im A[v, m, :]]; B_t[j, v, m] = B[v, m, j].
@@ -99,8 +101,8 @@ class VoicePool:
         self.bend = np.zeros(slots)  # semitones applied to omega
         # np.zeros maps its pages lazily; write them now, so the first use of a slot (in the
         # audio callback) takes no page faults.
-        for arr in (self.s, self.g, self.h, self.gf, self.sigma, self.sigma_hold, self.omega_base, self.omega,
-                    self.p_block, self.logp, self.A_rows, self.B_t, self.deriv, self.audible):
+        for arr in (self.s, self.g, self.h, self.gf, self.r, self.sigma, self.sigma_hold, self.omega_base, self.omega,
+                    self.p, self.p_block, self.logp, self.A_rows, self.B_t, self.deriv, self.audible):
             arr.fill(0.0)
         self.n_active = 0
 
@@ -122,6 +124,7 @@ class VoicePool:
         logp = (-sigma + 1j * omega) / self.fs
         self.logp[slots] = logp
         p = np.exp(logp)
+        self.p[slots] = p
         a = _powers_into(p, np.empty((self.n1,) + p.shape, complex))  # a[j] = p^j
         b = _powers_into(a[-1] * p, np.empty((self.n2 + 1,) + p.shape, complex))  # b[j] = p^(N1 j)
         # The single-precision B entries that would be subnormal there (under e^-69) are zero.
@@ -163,9 +166,10 @@ class VoicePool:
         last = self.n_active - 1
         moved = -1
         if v != last:
-            for arr in (self.s, self.g, self.h, self.gf, self.sigma, self.sigma_hold, self.omega_base, self.omega,
-                        self.p_block, self.logp, self.A_rows, self.deriv, self.audible, self.state, self.note,
-                        self.channel, self.order, self.fade_since, self.omega1, self.bend, self.velocity):
+            for arr in (self.s, self.g, self.h, self.gf, self.r, self.sigma, self.sigma_hold, self.omega_base,
+                        self.omega, self.p, self.p_block, self.logp, self.A_rows, self.deriv, self.audible,
+                        self.state, self.note, self.channel, self.order, self.fade_since, self.omega1, self.bend,
+                        self.velocity):
                 arr[v] = arr[last]
             self.B_t[:, v] = self.B_t[:, last]
             moved = last
