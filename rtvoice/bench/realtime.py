@@ -127,6 +127,7 @@ def _run_once(seconds: float, with_ui: bool, swing: bool) -> dict:
     s = link.summary
     out = {"audio": audio, "seconds": round(s.get("seconds", 0.0), 2), "blocks": s.get("blocks"),
            "load_median": s.get("load_median"), "load_p99": s.get("load_p99"), "xruns": s.get("xruns"),
+           "late": s.get("late"),
            "render_median": s.get("render_median"), "render_p99": s.get("render_p99")}
     if with_ui:
         out["ui_frames_drawn"] = frames

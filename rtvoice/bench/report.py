@@ -134,9 +134,10 @@ def render_text(r: dict) -> str:
                 extra = f", {m['ui_frames_drawn']} UI frames" if "ui_frames_drawn" in m else ""
                 render = (f" (the engine's render: median {_pct(m['render_median'])}, p99 {_pct(m['render_p99'])})"
                           if m.get("render_median") is not None else "")
+                late = f" ({m['late']} of them callbacks of ours that overran)" if m.get("late") is not None else ""
                 out.append(f"  - {label}: callback median {_pct(m['load_median'])}, p99 {_pct(m['load_p99'])} of "
                            f"the period{render} over {m['blocks']} blocks in {m['seconds']} s; xruns "
-                           f"{m['xruns']}{extra}")
+                           f"{m['xruns']}{late}{extra}")
     else:
         out.append(f"- not measured: {rt['reason']}")
     out += _profile_text(r)

@@ -28,6 +28,7 @@ import numpy as np
 
 from rtvoice.engine import midi
 from rtvoice.engine.modal_filter import ModalFilter
+from rtvoice.engine.note_tables import HOLDING, NoteTables, next_decay
 from rtvoice.engine.notes import harmonic_stretch, initial_amplitudes
 from rtvoice.engine.output import CEILING, Limiter, dc_blocker_coefficients
 from rtvoice.engine.pickup_sums import PickupSums
@@ -136,6 +137,7 @@ class Engine:
         self._stash = np.zeros((slots, modes), complex)
         self._views: dict[int, _BulkViews] = {}  # by number of active voices
         self._pickup_sums = PickupSums(modes)
+        self._tables = NoteTables(self.pool, 2 * slots)
 
     def _prepare_notes(self) -> None:
         s = self.settings
@@ -144,6 +146,7 @@ class Engine:
         self._release_t60 = s.get("string.release")
         self._initial = initial_amplitudes(s, self.pool.modes)
         self._weight_abs = None  # see _start_bound
+        self._tables.clear()  # frequencies and decay rates may have changed
 
     @property
     def initial(self) -> np.ndarray:
@@ -174,6 +177,7 @@ class Engine:
         """
         new = ModalFilter(*self.output_filter(), self.block)
         old, self._filter = self._filter, new
+        self._tables.clear()  # they hold the old filter's resolvents
         if old is None:
             return
         new.take_free_response(old)
@@ -265,6 +269,8 @@ class Engine:
             return
         if any(n.startswith(NOTE_PARAM_PREFIXES) for n in changed):  # not for a moving pickup: 70 us saved
             self._prepare_notes()
+        elif any(n.startswith("tuning.") for n in changed):
+            self._tables.clear()
         if any(n.startswith("electronics.") for n in changed):
             self._prepare_electronics()
         self._gain_target = 10 ** (settings.get("output.gain_db") / 20)
@@ -374,11 +380,17 @@ class Engine:
                 starts = [c for c in now if c[2] == START]
                 if starts:
                     self._start_voices(starts)
+                decay = self.pool.decay
                 for v, _, kind, _ in now:
                     if kind == RELEASE:
                         self.pool.sigma[v] = release_rate_per_s(self.pool.sigma_hold[v], self._release_t60)
+                        decay[v] = next_decay(decay[v], "release")
                     elif kind == FADE:
                         np.maximum(self.pool.sigma[v], LN_1000 / FADE_T60_S, out=self.pool.sigma[v])
+                        decay[v] = next_decay(decay[v], "fade")
+                    else:
+                        decay[v] = HOLDING
+                        self.pool.epoch[v] = self._tables.epoch
                     self._mark_tables(v)
                 self._flush_tables()
                 # The output filter's free response to each change, from where its voice stands (with
@@ -431,9 +443,28 @@ class Engine:
             self._dirty_list.append(v)
 
     def _flush_tables(self) -> None:
+        """Rebuild the marked slots' tables: copied from :class:`NoteTables` where kept, built (and kept) otherwise."""
         if self._dirty_list:
+            pool = self.pool
             idx = np.array(self._dirty_list)
-            self._fold(idx, self.pool.update_tables_at(idx))
+            keys = [(int(pool.note[v]), int(pool.decay[v]), int(pool.epoch[v])) if pool.bend[v] == 0.0 else None
+                    for v in idx]
+            entries = self._tables.find(keys)
+            kept = entries >= 0
+            if kept.any():
+                hit = idx[kept]
+                self._tables.load(pool, hit, entries[kept])
+                pool.gf[hit] = pool.g[hit] * pool.h[hit]
+                self._gf_next[hit] = self._g_next[hit] * pool.h[hit]
+            if not kept.all():
+                built = idx[~kept]
+                self._fold(built, pool.update_tables_at(built))
+                new = {}
+                for v, key in zip(idx[~kept], (k for k, e in zip(keys, kept, strict=True) if not e), strict=True):
+                    if key is not None:
+                        new.setdefault(key, v)  # one slot per key (the same note on two channels)
+                if new:
+                    self._tables.save(pool, np.array(list(new.values())), list(new))
             self._dirty[self._dirty_list] = False
             self._dirty_list.clear()
 

@@ -99,6 +99,8 @@ class VoicePool:
         self.fade_since = np.zeros(slots, np.int64)  # sample (since the engine started) its fade began
         self.omega1 = np.ones(slots)  # bent fundamental, rad/s: velocity-pickup reference
         self.bend = np.zeros(slots)  # semitones applied to omega
+        self.decay = np.zeros(slots, np.int8)  # which decay rate its modes follow (see note_tables)
+        self.epoch = np.zeros(slots, np.int64)  # the settings epoch its note started in (see note_tables)
         # np.zeros maps its pages lazily; write them now, so the first use of a slot (in the
         # audio callback) takes no page faults.
         for arr in (self.s, self.g, self.h, self.gf, self.r, self.sigma, self.sigma_hold, self.omega_base, self.omega,
@@ -169,7 +171,7 @@ class VoicePool:
             for arr in (self.s, self.g, self.h, self.gf, self.r, self.sigma, self.sigma_hold, self.omega_base,
                         self.omega, self.p, self.p_block, self.logp, self.A_rows, self.deriv, self.audible,
                         self.state, self.note, self.channel, self.order, self.fade_since, self.omega1, self.bend,
-                        self.velocity):
+                        self.velocity, self.decay, self.epoch):
                 arr[v] = arr[last]
             self.B_t[:, v] = self.B_t[:, last]
             moved = last
