@@ -29,6 +29,7 @@ from rtvoice.bench.baselines import (
     stretch_for_loss,
 )
 from rtvoice.bench.scenes import HeldChord
+from rtvoice.bench.timing import time_in_turns
 from rtvoice.engine.renderer import Engine
 from rtvoice.engine.settings import Settings
 from rtvoice.physics.damping import LN_1000
@@ -216,6 +217,17 @@ def test_held_chord_keeps_every_voice_and_the_ramp_running():
     before = steady.engine.pool.g[:6].copy()
     steady.render()
     assert np.array_equal(steady.engine.pool.g[:6], before)
+
+
+def test_calls_timed_in_turns_alternate_and_each_step_sees_its_own_count():
+    # The mechanics only (no timing is judged): every call timed `repeats` times in `turns` runs,
+    # interleaved, each call's `between` given its own running count (warm-up included).
+    order, seen = [], {"a": [], "b": []}
+    timings = time_in_turns([lambda: order.append("a"), lambda: order.append("b")], repeats=12, warmup=2, turns=3,
+                            between=[seen["a"].append, seen["b"].append])
+    assert [t.count for t in timings] == [12, 12]
+    assert order[:6] == ["a"] * 6 and order[6:12] == ["b"] * 6 and order[12:16] == ["a"] * 4
+    assert seen["a"] == list(range(14)) and seen["b"] == list(range(14))
 
 
 @pytest.mark.slow
