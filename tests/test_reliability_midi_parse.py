@@ -140,6 +140,7 @@ def test_note_ons_over_the_budget_wait_for_the_next_blocks_in_order_and_none_is_
     # A chord bigger than the burst: the first note-ons play now, the rest (and every event after
     # the first that waits, so no note-off overtakes its note-on) at the start of later blocks.
     guard = NoteOnGuard(PERIOD_S, budget_share=0.25, burst=8, max_deferred=64)
+    guard.cost_s = 1e-4  # cheap note-ons: the burst, not the block's share, is what holds them back
     events = _block(40, others=20)
     before = list(events)
     assert guard.admit(events) == 0 and guard.dropped == 0
@@ -157,6 +158,7 @@ def test_note_ons_over_the_budget_wait_for_the_next_blocks_in_order_and_none_is_
 
 def test_a_flood_beyond_what_may_wait_drops_note_ons_and_plays_the_rest_now():
     guard = NoteOnGuard(PERIOD_S, budget_share=0.25, burst=8, max_deferred=64)
+    guard.cost_s = 1e-4
     events = _block(200, others=20)
     before = list(events)
     dropped = guard.admit(events)
@@ -169,7 +171,7 @@ def test_a_flood_beyond_what_may_wait_drops_note_ons_and_plays_the_rest_now():
 
 def test_note_on_budget_follows_the_measured_cost():
     """With a note-on costing c seconds over a block of none, a sustained flood gets about
-    budget / c note-ons a block (a token bucket), and a chord after quiet passes whole."""
+    budget / c note-ons a block (a token bucket), and a chord after quiet passes whole where it fits."""
     cost_s, base_s = 0.0004, 0.0005
     guard = NoteOnGuard(PERIOD_S, budget_share=0.25, burst=8)
     passed = []
@@ -191,8 +193,35 @@ def test_note_on_budget_follows_the_measured_cost():
         guard.admit([])
         guard.learn(base_s)
     assert guard.waiting == 0
-    chord = _block(8)
-    assert guard.admit(chord) == 0 and note_ons(chord) == note_ons(_block(8))
+    chord = _block(5)  # 5 x 0.4 + 0.5 ms: within half of the 5.3 ms period
+    assert guard.admit(chord) == 0 and note_ons(chord) == note_ons(_block(5))
+
+
+def test_no_block_is_given_more_note_ons_than_fit_in_its_share():
+    # Costly note-ons (0.8 ms each over a 0.5 ms block, as a cold callback here can see): a chord of 8
+    # after quiet would take 6.9 ms of a 5.3 ms period in one block, an overrun. It is spread so that
+    # no block is expected to take more than BLOCK_SHARE of its period, and nothing is lost.
+    from rtvoice.host.overload import BLOCK_SHARE
+
+    cost_s, base_s = 0.0008, 0.0005
+    guard = NoteOnGuard(PERIOD_S, budget_share=0.25, burst=8)
+    for _ in range(200):  # learn the costs (a few note-ons now and then), then a moment's quiet
+        events = _block(1)
+        guard.admit(events)
+        guard.learn(base_s + len(note_ons(events)) * cost_s)
+        for _ in range(10):
+            guard.admit([])
+            guard.learn(base_s)
+    chord, played, blocks = _block(8), [], 0
+    while blocks < 20 and (chord or guard.waiting):
+        guard.admit(chord)
+        n = len(note_ons(chord))
+        assert base_s + n * cost_s <= BLOCK_SHARE * PERIOD_S * 1.1 or n == 1
+        played += note_ons(chord)
+        guard.learn(base_s + n * cost_s)
+        chord, blocks = [], blocks + 1
+    assert [e[1:] for e in played] == [e[1:] for e in note_ons(_block(8))]
+    assert blocks <= 6
 
 
 def test_a_panic_behind_waiting_note_ons_is_never_later_than_the_longest_wait():

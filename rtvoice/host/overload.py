@@ -8,7 +8,10 @@ overflow, losing the very all-notes-off that should end it. The guard learns wha
 one note-on costs here (the render time of blocks with note-ons, less that of blocks
 without, per note-on, as an envelope that rises fast and falls slowly) and keeps a
 token bucket: each block adds as many note-ons as fit in a share of its period, up
-to a burst of :data:`BURST`. A note-on without a token waits for the next block,
+to a burst of :data:`BURST`, and no block takes more note-ons than fit in
+:data:`BLOCK_SHARE` of its period beside its other work (a burst of note-ons in one
+block overran the period on this machine: the first block of every big strum was a
+dropout). A note-on without a token, or beyond that, waits for the next block,
 and so does every event after it (order is kept, so no note-off overtakes its
 note-on): a big chord is spread over a few blocks (a few milliseconds) and nothing
 is lost. Only when more than :data:`MAX_DEFERRED` events wait, or the oldest has
@@ -24,7 +27,8 @@ import math
 from rtvoice.engine.midi import NOTE_ON
 
 BUDGET_SHARE = 0.12  # over time, note-ons may take this share of the callback's period
-BURST = 8  # note-ons the bucket holds: a two-handed chord passes whole after a moment's quiet
+BURST = 8  # note-ons the bucket holds: a two-handed chord passes whole after a moment's quiet (where it fits)
+BLOCK_SHARE = 0.5  # no block's note-ons and other work may be expected to take more of its period than this
 MAX_DEFERRED = 64  # events that may wait for a later block before waiting note-ons are dropped
 MAX_WAIT_S = 0.05  # nor may any event wait longer than this (so a panic behind them is not late)
 INITIAL_COST_S = 4e-4  # a cautious first guess of one note-on's cost, until measured
@@ -40,9 +44,10 @@ class NoteOnGuard:
     """Holds back the note-ons of a block beyond what the measured cost allows (callback side)."""
 
     def __init__(self, period_s: float, budget_share: float = BUDGET_SHARE, burst: int = BURST,
-                 max_deferred: int = MAX_DEFERRED):
+                 max_deferred: int = MAX_DEFERRED, block_share: float = BLOCK_SHARE):
         self.period_s = period_s
         self.budget_s = budget_share * period_s
+        self.block_s = block_share * period_s
         self.burst = burst
         self.max_deferred = max_deferred
         self.tokens = float(burst)
@@ -57,8 +62,9 @@ class NoteOnGuard:
 
     @property
     def allowed(self) -> int:
-        """Note-ons the next block may take."""
-        return math.floor(self.tokens)
+        """Note-ons the next block may take: the tokens it has, at most what fits in its share (at least one)."""
+        fits = max(1, math.floor((self.block_s - self.base_s) / self.cost_s))
+        return min(math.floor(self.tokens), fits)
 
     @property
     def waiting(self) -> int:
