@@ -62,7 +62,10 @@ def partials_of(engine: Engine) -> Partials:
 
 
 class OutputChain:
-    """The engine's output stage at a constant gain: coil filter, gain, DC blocker, limiter."""
+    """The engine's output stage at a constant gain, run on samples: coil filter, gain, DC blocker, limiter.
+
+    (The engine itself folds the same filters into its modes: engine/modal_filter.py.)
+    """
 
     def __init__(self, engine: Engine):
         f_r, q = engine.resonance()

@@ -92,10 +92,11 @@ def render_text(r: dict) -> str:
                      *(f"{bl[k]['timing']['median_us']:.0f} ({bl[k]['ratio_to_engine']:.1f}x)"
                        for k in ("a_resonators_lfilter", "b_phasor_recursion", "c_karplus_strong"))])
     out += ["", "## Baselines, same notes, 128 frames", "",
-            "Median us per block (ratio to the engine, steady). (a) one two-pole resonator per mode through "
-            "scipy.signal.lfilter; (b) the complex phasor recursion stepped sample by sample, vectorised across "
-            "modes; (c) extended Karplus-Strong (Jaffe & Smith 1983), one string loop per voice. All use the "
-            "engine's output stage.", "",
+            "Median us per block (ratio to the steady engine timed in turns beside each baseline). (a) one "
+            "two-pole resonator per mode through scipy.signal.lfilter; (b) the complex phasor recursion stepped "
+            "sample by sample, vectorised across modes; (c) extended Karplus-Strong (Jaffe & Smith 1983), one "
+            "string loop per voice. All run the engine's output filters on their samples (lfilter) and its "
+            "limiter; the engine folds the same filters into its modes.", "",
             _table(["voices x modes", "total", "engine", "engine+ramps", "(a) resonators", "(b) phasors",
                     "(c) Karplus-Strong"], rows)]
     idle = r["idle"]
