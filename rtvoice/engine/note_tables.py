@@ -2,7 +2,7 @@
 
 Starting a voice, or changing its decay (release, fade), rebuilds its modes' power
 tables and the output filter's resolvents and gains (:meth:`VoicePool.update_tables_at`
-and ``Engine._fold``): a few dozen array operations, the costliest part of a note-on.
+and ``Engine._resolve``): a few dozen array operations, the costliest part of a note-on.
 For a voice without pitch bend they depend only on its note and on which decay it is
 in (and on the settings it started with), so they are kept here by (note, decay,
 epoch) and copied on the next use (a few array copies, whatever the count). The
@@ -18,16 +18,14 @@ import numpy as np
 
 from rtvoice.engine.voices import VoicePool
 
-HOLDING, RELEASED, FADED, FADED_AFTER_RELEASE = 0, 1, 2, 3  # which decay rate a voice's modes follow
+DECAY_HOLD, DECAY_RELEASE, DECAY_FADE, DECAY_FADE_AFTER_RELEASE = 0, 1, 2, 3  # which decay rate its modes follow
 
 _ROWS = ("A_rows", "p", "logp", "p_block", "h", "r")  # per-slot rows of the pool (slot is axis 0)
 
 
-def next_decay(decay: int, change: str) -> int:
-    """The decay after ``change`` ("release" or "fade") of a voice in ``decay``."""
-    if change == "release":
-        return RELEASED
-    return FADED_AFTER_RELEASE if decay in (RELEASED, FADED_AFTER_RELEASE) else FADED
+def faded(decay: int) -> int:
+    """The decay of a voice in ``decay`` once it is faded (from the held or the released rate)."""
+    return DECAY_FADE_AFTER_RELEASE if decay in (DECAY_RELEASE, DECAY_FADE_AFTER_RELEASE) else DECAY_FADE
 
 
 class NoteTables:

@@ -28,7 +28,7 @@ import numpy as np
 
 from rtvoice.engine import midi
 from rtvoice.engine.modal_filter import ModalFilter
-from rtvoice.engine.note_tables import HOLDING, NoteTables, next_decay
+from rtvoice.engine.note_tables import DECAY_HOLD, DECAY_RELEASE, NoteTables, faded
 from rtvoice.engine.notes import harmonic_stretch, initial_amplitudes
 from rtvoice.engine.output import CEILING, Limiter, dc_blocker_coefficients
 from rtvoice.engine.pickup_sums import PickupSums
@@ -181,15 +181,10 @@ class Engine:
         if old is None:
             return
         new.take_free_response(old)
-        pool = self.pool
-        n = pool.n_active
+        n = self.pool.n_active
         if n:
-            r = new.resolvent(pool.p[:n])
-            h = new.gain_from(r)
-            r *= pool.audible[:n, :, None]
-            pool.r[:n] = r
-            pool.h[:n] = h
-            np.multiply(self._g_next[:n], h, out=self._gf_next[:n])
+            self._resolve(slice(0, n), self.pool.p[:n])
+            np.multiply(self._g_next[:n], self.pool.h[:n], out=self._gf_next[:n])
             self._refolding = True  # the next block ramps pool.gf to _gf_next
 
     def resonance(self) -> tuple[float, float]:
@@ -235,16 +230,19 @@ class Engine:
         self.pool.g[idx] = g
         self._g_next[idx] = g
 
-    def _fold(self, slots: slice | np.ndarray, p: np.ndarray) -> None:
-        """The output filter at the modes of ``slots`` (their p given): resolvents, gains H(p), product weights."""
+    def _resolve(self, slots: slice | np.ndarray, p: np.ndarray) -> None:
+        """The output filter at the modes of ``slots`` (their p given): resolvents and gains H(p)."""
         pool = self.pool
         r = self._filter.resolvent(p)
-        h = self._filter.gain_from(r)
+        pool.h[slots] = self._filter.gain_from(r)
         r *= pool.audible[slots][..., None]  # a mode not heard is no input to the filter
         pool.r[slots] = r
-        pool.h[slots] = h
-        pool.gf[slots] = pool.g[slots] * h
-        self._gf_next[slots] = self._g_next[slots] * h
+
+    def _weigh(self, slots: slice | np.ndarray) -> None:
+        """The product weights g h of ``slots``, now and as the ramp's target."""
+        pool = self.pool
+        pool.gf[slots] = pool.g[slots] * pool.h[slots]
+        self._gf_next[slots] = self._g_next[slots] * pool.h[slots]
 
     def _steady_states(self, idx: np.ndarray) -> np.ndarray:
         """The output filter's steady state of each slot in ``idx`` (shape (len(idx), order)), from its modes now."""
@@ -384,12 +382,12 @@ class Engine:
                 for v, _, kind, _ in now:
                     if kind == RELEASE:
                         self.pool.sigma[v] = release_rate_per_s(self.pool.sigma_hold[v], self._release_t60)
-                        decay[v] = next_decay(decay[v], "release")
+                        decay[v] = DECAY_RELEASE
                     elif kind == FADE:
                         np.maximum(self.pool.sigma[v], LN_1000 / FADE_T60_S, out=self.pool.sigma[v])
-                        decay[v] = next_decay(decay[v], "fade")
+                        decay[v] = faded(decay[v])
                     else:
-                        decay[v] = HOLDING
+                        decay[v] = DECAY_HOLD
                         self.pool.epoch[v] = self._tables.epoch
                     self._mark_tables(v)
                 self._flush_tables()
@@ -452,19 +450,17 @@ class Engine:
             entries = self._tables.find(keys)
             kept = entries >= 0
             if kept.any():
-                hit = idx[kept]
-                self._tables.load(pool, hit, entries[kept])
-                pool.gf[hit] = pool.g[hit] * pool.h[hit]
-                self._gf_next[hit] = self._g_next[hit] * pool.h[hit]
+                self._tables.load(pool, idx[kept], entries[kept])
             if not kept.all():
                 built = idx[~kept]
-                self._fold(built, pool.update_tables_at(built))
+                self._resolve(built, pool.update_tables_at(built))
                 new = {}
-                for v, key in zip(idx[~kept], (k for k, e in zip(keys, kept, strict=True) if not e), strict=True):
-                    if key is not None:
+                for v, key, entry in zip(idx, keys, entries, strict=True):
+                    if entry < 0 and key is not None:
                         new.setdefault(key, v)  # one slot per key (the same note on two channels)
                 if new:
                     self._tables.save(pool, np.array(list(new.values())), list(new))
+            self._weigh(idx)
             self._dirty[self._dirty_list] = False
             self._dirty_list.clear()
 
