@@ -2,12 +2,11 @@
 
 from __future__ import annotations
 
-import time
 from dataclasses import dataclass
 
 from rtvoice.bench.limits import BareProduct, factored_product
 from rtvoice.bench.scenes import SAMPLE_RATE_HZ, HeldChord, chord_events, feature_settings
-from rtvoice.bench.timing import Timing, summarize, time_calls, time_in_turns
+from rtvoice.bench.timing import Timing, time_calls, time_in_turns
 from rtvoice.engine.renderer import Engine
 
 
@@ -95,7 +94,8 @@ def idle_costs(block: int, repeats: int, modes: int = 128) -> dict:
     silent = engine_with(128, 0)
     t_silent = time_calls(lambda: silent.render(()), repeats, 20)
     big, small = engine_with(128, 1), engine_with(1, 1)
-    t_big, t_small = time_alternately(lambda: big.render(()), lambda: small.render(()), repeats)
+    # One call each in turn, so a slow spell of the machine falls on both alike.
+    t_big, t_small = time_in_turns([lambda: big.render(()), lambda: small.render(())], repeats, 20, turns=repeats)
     period = block_period_us(block)
     return {
         "block": block,
@@ -105,21 +105,3 @@ def idle_costs(block: int, repeats: int, modes: int = 128) -> dict:
         "one_note_in_1_voice_pool": t_small.as_dict(),
         "per_idle_slot_us": round((t_big.median_us - t_small.median_us) / 127, 3),
     }
-
-
-def time_alternately(first, second, repeats: int, warmup: int = 20) -> tuple[Timing, Timing]:
-    """Time two calls in alternation, so a slow spell of the machine falls on both alike."""
-    clock = time.perf_counter_ns
-    for _ in range(warmup):
-        first()
-        second()
-    a, b = [], []
-    for _ in range(repeats):
-        t0 = clock()
-        first()
-        t1 = clock()
-        second()
-        t2 = clock()
-        a.append(t1 - t0)
-        b.append(t2 - t1)
-    return summarize(a), summarize(b)

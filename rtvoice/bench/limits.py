@@ -56,12 +56,6 @@ def factored_product(modes: int, block: int, seed: int = 1) -> tuple[Callable[[]
     return (lambda: np.matmul(c_t, a, out=y)), COMPLEX64_BYTES * modes * (n1 + n2)
 
 
-def bare_factored_product(modes: int, block: int, repeats: int, warmup: int = 20, seed: int = 1) -> BareProduct:
-    """Time the product of :func:`factored_product` alone."""
-    call, nbytes = factored_product(modes, block, seed)
-    return BareProduct(modes, block, time_calls(call, repeats, warmup), nbytes)
-
-
 def bare_table_product(modes: int, block: int, repeats: int, warmup: int = 5, seed: int = 2) -> BareProduct:
     """Time y = T x, T the (block x modes) complex64 table of powers, x the mode amplitudes."""
     rng = np.random.default_rng(seed)

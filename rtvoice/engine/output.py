@@ -1,7 +1,8 @@
-"""The output stage: electronics filter, gain ramp, DC blocker, limiter.
+"""The output stage's parts: the limiter, the DC blocker's and coil filter's coefficients, a sample filter.
 
-Each stage processes one block in place and carries its state to the next
-block, so the same code serves real-time and offline rendering.
+The engine applies its linear output filter to the modes (:mod:`rtvoice.engine.modal_filter`)
+and then the gain and the limiter here, block by block with carried state, so the
+same code serves real-time and offline rendering.
 """
 
 from __future__ import annotations
@@ -20,32 +21,20 @@ CEILING = 10.0 ** (CEILING_DBFS / 20.0)  # 0.891251 linear
 class BlockFilter:
     """A linear filter (b, a) applied block by block with carried state (scipy.signal.lfilter's ``zi``).
 
-    New coefficients keep the state, so a change of resonance does not restart the
-    filter. The engine folds its output filter into the modes instead
-    (:mod:`rtvoice.engine.modal_filter`); this one serves the survey's model and the
-    benchmark's baselines, which filter samples.
+    The engine folds its output filter into the modes instead
+    (:mod:`rtvoice.engine.modal_filter`); this one serves the survey's model (its
+    coefficients) and the benchmark's baselines, which filter samples.
     """
 
     def __init__(self, b: np.ndarray, a: np.ndarray):
         self.b, self.a = np.asarray(b, float), np.asarray(a, float)
         self.zi = np.zeros(max(len(self.a), len(self.b)) - 1)
 
-    def set_coefficients(self, b: np.ndarray, a: np.ndarray) -> None:
-        b, a = np.asarray(b, float), np.asarray(a, float)
-        if len(b) != len(self.b) or len(a) != len(self.a):
-            self.zi = np.zeros(max(len(a), len(b)) - 1)
-        self.b, self.a = b, a
-
-    def process(self, x: np.ndarray, gain: float = 1.0) -> None:
-        """Filter ``x`` in place and scale the result by ``gain``."""
+    def process(self, x: np.ndarray) -> None:
+        """Filter ``x`` in place."""
         x[:], self.zi = scipy.signal.lfilter(self.b, self.a, x, zi=self.zi)
-        if gain != 1.0:
-            x *= gain
         if not all(map(math.isfinite, self.zi)):  # a few values: cheaper in Python than a ufunc
             self.zi[:] = 0.0
-
-    def reset(self) -> None:
-        self.zi[:] = 0.0
 
 
 def electronics_filter(resonance_hz: float, q: float, sample_rate_hz: float) -> BlockFilter | None:
