@@ -20,6 +20,7 @@ from rtvoice.engine.voices import VoicePool
 
 DECAY_HOLD, DECAY_RELEASE, DECAY_FADE, DECAY_FADE_AFTER_RELEASE = 0, 1, 2, 3  # which decay rate its modes follow
 
+FEW = 4  # up to this many slots are copied one by one (measured: faster than a gather)
 _ROWS = ("A_rows", "p", "logp", "p_block", "h", "r")  # per-slot rows of the pool (slot is axis 0)
 
 
@@ -61,6 +62,12 @@ class NoteTables:
 
     def load(self, pool: VoicePool, slots: np.ndarray, entries: np.ndarray) -> None:
         """Copy kept tables into the pool's ``slots``."""
+        if len(slots) <= FEW:  # row by row: a plain index copies without the gather's temporary
+            for v, e in zip(slots.tolist(), entries.tolist(), strict=True):
+                for name, rows in self._rows.items():
+                    getattr(pool, name)[v] = rows[e]
+                pool.B_t[:, v] = self._b[:, e]
+            return
         for name, rows in self._rows.items():
             getattr(pool, name)[slots] = rows[entries]
         pool.B_t[:, slots] = self._b[:, entries]

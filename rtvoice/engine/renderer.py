@@ -28,6 +28,7 @@ import numpy as np
 
 from rtvoice.engine import midi
 from rtvoice.engine.modal_filter import ModalFilter
+from rtvoice.engine.note_starts import NoteStarts
 from rtvoice.engine.note_tables import DECAY_HOLD, DECAY_RELEASE, NoteTables, faded
 from rtvoice.engine.notes import harmonic_stretch, initial_amplitudes
 from rtvoice.engine.output import CEILING, Limiter, dc_blocker_coefficients
@@ -36,13 +37,15 @@ from rtvoice.engine.settings import Settings
 from rtvoice.engine.voices import FADING, HELD, RELEASED, SOUNDING, VoicePool
 from rtvoice.physics.damping import LN_1000, decay_rate_per_s, loss_coefficients, release_rate_per_s
 from rtvoice.physics.electronics import lowpass_biquad, rlc_resonance
-from rtvoice.physics.modes import NYQUIST_MARGIN
 from rtvoice.physics.pickup import velocity_factor
 from rtvoice.physics.tuning import midi_note_to_hz
 
 OUTPUT_SCALE = 0.25  # one full-velocity note peaks near -12 dBFS at 0 dB gain
 RETIRE_LEVEL = 1e-5  # -100 dBFS: a voice whose bound falls below this is silent
 RETIRE_CHECK_S = 0.01  # silent voices are looked for this often (the bound costs a pass over all modes)
+#: Tiny mode amplitudes are zeroed about this often (at a retire check): from SILENT_MODE (1e-30) to
+#: single precision's subnormal floor (1.2e-38) is 18.4 nepers, 53 ms even at the fade's rate.
+TINY_CHECK_S = 0.04
 FADE_T60_S = 0.02  # steal, re-pluck and all-sound-off fade
 SMOOTHING_S = 0.015  # time constant of live parameter smoothing
 
@@ -91,6 +94,7 @@ class Engine:
         self._alpha = 1.0 - math.exp(-self.block / (SMOOTHING_S * self.fs))
         self._order = 0
         self._retire_every = max(1, round(RETIRE_CHECK_S * self.fs / self.block))  # blocks
+        self._tiny_every = max(1, math.floor(TINY_CHECK_S * self.fs / (self.block * self._retire_every)))  # checks
         self._out = np.zeros(self.block)
         self._exact = np.zeros(self.block)
         self._ramp = np.arange(1, self.block + 1) / self.block
@@ -137,7 +141,8 @@ class Engine:
         self._stash = np.zeros((slots, modes), complex)
         self._views: dict[int, _BulkViews] = {}  # by number of active voices
         self._pickup_sums = PickupSums(modes)
-        self._tables = NoteTables(self.pool, 2 * slots)
+        self._tables = NoteTables(self.pool, 3 * slots)  # room for each slot's note held, released and faded
+        self._starts = NoteStarts(modes, self.fs)
 
     def _prepare_notes(self) -> None:
         s = self.settings
@@ -226,6 +231,7 @@ class Engine:
 
         Their product weights follow when their tables are rebuilt (:meth:`_flush_tables`).
         """
+        idx = as_run(idx)
         g = self.pool.deriv[idx] * self._vel + self._disp
         self.pool.g[idx] = g
         self._g_next[idx] = g
@@ -241,12 +247,14 @@ class Engine:
     def _weigh(self, slots: slice | np.ndarray) -> None:
         """The product weights g h of ``slots``, now and as the ramp's target."""
         pool = self.pool
+        slots = as_run(slots)
         pool.gf[slots] = pool.g[slots] * pool.h[slots]
         self._gf_next[slots] = self._g_next[slots] * pool.h[slots]
 
     def _steady_states(self, idx: np.ndarray) -> np.ndarray:
         """The output filter's steady state of each slot in ``idx`` (shape (len(idx), order)), from its modes now."""
         pool = self.pool
+        idx = as_run(idx)
         return self._filter.steady_state(pool.r[idx], pool.g[idx] * pool.s[idx])
 
     # -- settings -----------------------------------------------------------------
@@ -358,42 +366,55 @@ class Engine:
             self._touched_list.append(v)
 
     def _apply_changes(self, ramping: bool) -> None:
-        """Second pass: render each touched voice up to its next change, apply the changes, repeat."""
+        """Second pass: render each touched voice up to its next change, apply the changes, repeat.
+
+        A voice's changes on the same sample (a note-off and the re-pluck's fade, say)
+        are one step: its tables, steady state and the output filter's kick are worked
+        out once, for where the last of them leaves it.
+        """
         changes = self._changes
         if changes:
-            queues: dict[int, list] = {}
+            queues: dict[int, list[list[tuple]]] = {}
             for change in changes:
-                queues.setdefault(change[0], []).append(change)
+                steps = queues.setdefault(change[0], [])
+                if steps and steps[-1][0][1] == change[1]:
+                    steps[-1].append(change)
+                else:
+                    steps.append([change])
             changes.clear()
             depth = max(len(q) for q in queues.values())
             for step in range(depth):
                 now = [q[step] for q in queues.values() if len(q) > step]
-                self._render_segments([c[0] for c in now], [c[1] for c in now], ramping)
-                idx = np.array([c[0] for c in now])
+                self._render_segments([g[0][0] for g in now], [g[0][1] for g in now], ramping)
+                idx = np.array([g[0][0] for g in now])
                 # A fresh slot starts from silence: its steady state before is zero.
-                stale = [i for i, c in enumerate(now) if not (c[2] == START and c[3][4])]
+                stale = [i for i, g in enumerate(now) if not (g[0][2] == START and g[0][3][4])]
                 before = np.zeros((len(now), self._filter.order))
                 if stale:
                     before[stale] = self._steady_states(idx[stale])
-                starts = [c for c in now if c[2] == START]
+                # A start sets the voice up anew: what came before it on its sample no longer matters.
+                now = [g[max((i for i, c in enumerate(g) if c[2] == START), default=0):] for g in now]
+                starts = [g[0] for g in now if g[0][2] == START]
                 if starts:
                     self._start_voices(starts)
-                decay = self.pool.decay
-                for v, _, kind, _ in now:
-                    if kind == RELEASE:
-                        self.pool.sigma[v] = release_rate_per_s(self.pool.sigma_hold[v], self._release_t60)
-                        decay[v] = DECAY_RELEASE
-                    elif kind == FADE:
-                        np.maximum(self.pool.sigma[v], LN_1000 / FADE_T60_S, out=self.pool.sigma[v])
-                        decay[v] = faded(decay[v])
-                    else:
-                        decay[v] = DECAY_HOLD
-                        self.pool.epoch[v] = self._tables.epoch
+                pool = self.pool
+                for group in now:
+                    v = group[0][0]
+                    for _, _, kind, _ in group:
+                        if kind == RELEASE:
+                            pool.sigma[v] = release_rate_per_s(pool.sigma_hold[v], self._release_t60)
+                            pool.decay[v] = DECAY_RELEASE
+                        elif kind == FADE:
+                            np.maximum(pool.sigma[v], LN_1000 / FADE_T60_S, out=pool.sigma[v])
+                            pool.decay[v] = faded(pool.decay[v])
+                        else:
+                            pool.decay[v] = DECAY_HOLD
+                            pool.epoch[v] = self._tables.epoch
                     self._mark_tables(v)
                 self._flush_tables()
                 # The output filter's free response to each change, from where its voice stands (with
                 # events in time order, the change's own sample).
-                at = np.maximum([c[1] for c in now], self._upto[idx])
+                at = np.maximum([g[0][1] for g in now], self._upto[idx])
                 self._filter.kicks(before - self._steady_states(idx), at, self._exact)
                 self._exact_used = True
         # A voice changed only at sample 0 is as good as untouched: the block product renders it.
@@ -488,8 +509,9 @@ class Engine:
         n = pool.n_active
         state = pool.state[:n]
         # A re-plucked note stops its old vibration with a short fade, as a finger would.
-        for v in np.flatnonzero((pool.note[:n] == note) & (pool.channel[:n] == ch) & (state != FADING)):
-            self._fade(int(v), at)
+        for v in self._slots_of(ch, note):
+            if state[v] != FADING:
+                self._fade(v, at)
         sounding = np.flatnonzero(state != FADING)
         if sounding.size >= self.voices:
             bound = self._bounds()[sounding]
@@ -511,7 +533,7 @@ class Engine:
         self._order += 1
         pool.order[v] = self._order
         initial = self.excitation_hook(ch) if self.excitation_hook is not None else None
-        self._bound[v] = self._start_bound(velocity, initial)  # its level is not set up yet
+        self._bound[v] = pool.level[v] = self._start_bound(velocity, initial)  # its level is not set up yet
         self._changes.append((v, at, START, (ch, note, velocity, initial, fresh)))
 
     def _bounds(self) -> np.ndarray:
@@ -534,20 +556,34 @@ class Engine:
         """Set up the voices of START changes (all at once): amplitudes, frequencies, decay, weights."""
         pool = self.pool
         idx = np.array([c[0] for c in starts])
-        ch = [c[3][0] for c in starts]
-        notes = np.array([c[3][1] for c in starts], float)
+        slots = as_run(idx)
+        a4_hz = self.settings.get("tuning.a4_hz")
+        rows = self._starts.rows([c[3][1] for c in starts], self._tables.epoch,
+                                 lambda notes: midi_note_to_hz(notes, a4_hz)[:, None] * self._stretch,
+                                 lambda freqs: decay_rate_per_s(freqs, self._b1, self._b3))
+        rows = as_run(rows)  # one note: views, not gathers
+        kept = self._starts
         velocity = np.array([c[3][2] for c in starts], float)
-        initial = np.stack([self._initial if c[3][3] is None else c[3][3] for c in starts])
-        freqs = midi_note_to_hz(notes, self.settings.get("tuning.a4_hz"))[:, None] * self._stretch
         amp = (velocity / 127.0) ** 2  # square-law velocity curve (common practice)
+        given = [c[3][3] for c in starts]
+        initial = self._initial if all(i is None for i in given) else np.stack(
+            [self._initial if i is None else i for i in given])
         s = amp[:, None] * initial
-        s[freqs >= NYQUIST_MARGIN * self.fs] = 0.0
-        pool.s[idx] = s
-        pool.omega_base[idx] = 2 * np.pi * freqs
-        sigma = decay_rate_per_s(freqs, self._b1, self._b3)
-        pool.sigma_hold[idx] = sigma
-        pool.sigma[idx] = sigma
-        self._set_bends(idx, np.array([self.channels.voice_bend(c) for c in ch]))
+        s *= kept.plucked[rows]  # no amplitude above the Nyquist margin
+        pool.s[slots] = s
+        pool.omega_base[slots] = kept.omega[rows]
+        sigma = kept.sigma[rows]
+        pool.sigma_hold[slots] = sigma
+        pool.sigma[slots] = sigma
+        bend = np.array([self.channels.voice_bend(c[3][0]) for c in starts])
+        if bend.any():
+            self._set_bends(idx, bend)
+        else:  # the kept rows of the unbent note (what _set_bends would work out)
+            pool.bend[slots] = 0.0
+            pool.omega[slots] = kept.omega[rows]
+            pool.omega1[slots] = kept.omega[rows, 0]
+            pool.deriv[slots] = kept.deriv[rows]
+            pool.audible[slots] = kept.audible[rows]
         self._set_weights(idx)
 
     def _set_bends(self, idx: np.ndarray, bend: np.ndarray) -> None:
@@ -562,12 +598,18 @@ class Engine:
 
     def _note_off(self, at: int, ch: int, note: int) -> None:
         pool = self.pool
-        n = pool.n_active
-        for v in np.flatnonzero((pool.note[:n] == note) & (pool.channel[:n] == ch) & (pool.state[:n] == SOUNDING)):
+        for v in self._slots_of(ch, note):
+            if pool.state[v] != SOUNDING:
+                continue
             if self.channels.sustain[ch]:
                 pool.state[v] = HELD
             else:
-                self._release(int(v), at)
+                self._release(v, at)
+
+    def _slots_of(self, ch: int, note: int) -> list[int]:
+        """Active slots playing ``note`` on channel ``ch``, in any state (one compare over the slots, then a few)."""
+        pool = self.pool
+        return [v for v in np.flatnonzero(pool.note[: pool.n_active] == note).tolist() if pool.channel[v] == ch]
 
     def _release(self, v: int, at: int) -> None:
         self._touch(v)
@@ -713,8 +755,14 @@ class Engine:
     def _retire(self) -> None:
         pool = self.pool
         if pool.n_active and (self.stats.blocks % self._retire_every == 0 or self._pending_rebuild is not None):
-            pool.clear_tiny_modes()
-            bound = pool.bound() * OUTPUT_SCALE * max(self._gain, 1.0)
+            # One pass over every slot now and then, not a share of them in every block: each
+            # numpy call costs its overhead whatever its size (measured under JACK: the share
+            # cost nearly what the whole pass did, in every block).
+            checks = self.stats.blocks // self._retire_every
+            if checks % self._tiny_every == 0 or self._pending_rebuild is not None:
+                pool.clear_tiny_modes()
+            pool.level[: pool.n_active] = pool.bound()
+            bound = pool.level[: pool.n_active] * (OUTPUT_SCALE * max(self._gain, 1.0))
             dead = np.flatnonzero(~(bound >= RETIRE_LEVEL))  # catches NaN too
             heard = dead[np.isfinite(bound[dead])]
             if heard.size:  # their input to the output filter stops: its state carries on freely
@@ -734,15 +782,29 @@ class Engine:
 
     # -- what the meters and UI read ----------------------------------------------
     def loudest_voice(self) -> int:
-        """Slot of the loudest active voice, or -1."""
-        if self.pool.n_active == 0:
-            return -1
-        return int(np.argmax(self.pool.bound()))
+        """Slot of the loudest active voice by the level bounds the retire check keeps (at most
+        RETIRE_CHECK_S old: a display's choice, with no pass over every mode), or -1."""
+        n = self.pool.n_active
+        return int(np.argmax(self.pool.level[:n])) if n else -1
 
     def mode_levels(self, v: int) -> np.ndarray:
         """|g s| of each mode of slot v in output units (before electronics and gain); 0 above the Nyquist margin."""
         pool = self.pool
         return np.abs(pool.g[v] * pool.s[v]) * (OUTPUT_SCALE * pool.audible[v])
+
+
+def as_run(idx: slice | np.ndarray) -> slice | np.ndarray:
+    """Slots ``idx`` as a slice when they are consecutive (one slot, a chord's new voices), else as given.
+
+    Indexing the pool's arrays with a slice makes views; with an index array, gathers
+    and scatters, which cost several times more for the few rows of an event.
+    """
+    if isinstance(idx, slice) or len(idx) == 0:
+        return idx
+    first, count = int(idx[0]), len(idx)
+    if int(idx[-1]) - first != count - 1 or (count > 2 and not bool((np.diff(idx) == 1).all())):
+        return idx
+    return slice(first, first + count)
 
 
 class _BulkViews:

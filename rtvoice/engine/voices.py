@@ -101,6 +101,7 @@ class VoicePool:
         self.bend = np.zeros(slots)  # semitones applied to omega
         self.decay = np.zeros(slots, np.int8)  # which decay rate its modes follow (see note_tables)
         self.epoch = np.zeros(slots, np.int64)  # the settings epoch its note started in (see note_tables)
+        self.level = np.zeros(slots)  # the last measured bound of each slot (see Engine.loudest_voice)
         # np.zeros maps its pages lazily; write them now, so the first use of a slot (in the
         # audio callback) takes no page faults.
         for arr in (self.s, self.g, self.h, self.gf, self.r, self.sigma, self.sigma_hold, self.omega_base, self.omega,
@@ -171,7 +172,7 @@ class VoicePool:
             for arr in (self.s, self.g, self.h, self.gf, self.r, self.sigma, self.sigma_hold, self.omega_base,
                         self.omega, self.p, self.p_block, self.logp, self.A_rows, self.deriv, self.audible,
                         self.state, self.note, self.channel, self.order, self.fade_since, self.omega1, self.bend,
-                        self.velocity, self.decay, self.epoch):
+                        self.velocity, self.decay, self.epoch, self.level):
                 arr[v] = arr[last]
             self.B_t[:, v] = self.B_t[:, last]
             moved = last
@@ -179,19 +180,20 @@ class VoicePool:
         self.g[last] = 0.0
         self.gf[last] = 0.0
         self.state[last] = FREE
+        self.level[last] = 0.0
         self.n_active -= 1
         return moved
 
-    def clear_tiny_modes(self) -> None:
-        """Zero mode amplitudes below SILENT_MODE.
+    def clear_tiny_modes(self, lo: int = 0, hi: int | None = None) -> None:
+        """Zero mode amplitudes below SILENT_MODE (in active slots lo..hi-1, all by default).
 
         High modes die long before their voice does; left alone, their amplitudes
         would sink into subnormal numbers and slow every block down.
         """
-        s = self.s[: self.n_active]
+        s = self.s[lo:self.n_active if hi is None else hi]
         s[np.abs(s) < SILENT_MODE] = 0.0
 
-    def bound(self) -> np.ndarray:
-        """Upper bound of each active voice's output amplitude: sum over modes of |g s|."""
-        n = self.n_active
-        return np.abs(self.g[:n] * self.s[:n]).sum(axis=1)
+    def bound(self, lo: int = 0, hi: int | None = None) -> np.ndarray:
+        """Upper bound of the output amplitude of active slots lo..hi-1 (all by default): sum over modes of |g s|."""
+        hi = self.n_active if hi is None else hi
+        return np.abs(self.g[lo:hi] * self.s[lo:hi]).sum(axis=1)

@@ -66,7 +66,8 @@ class VoiceStage:
         self._halves = [{"levels": np.zeros(MAX_MODES), "freqs": np.zeros(MAX_MODES), "n": 0, "note": -1,
                          "velocity": 0, "voices": 0} for _ in range(2)]
         self._ready = 0
-        self._work = self._mag = self._bound = None
+        self._work = np.zeros(MAX_MODES, complex)  # |g s| of the loudest voice's modes, worked out here
+        self._mag = np.zeros(MAX_MODES)
 
     def stage(self, engine: Engine, host_gain: float) -> None:
         """Copy the loudest voice's |g s| per mode in output units (callback side)."""
@@ -76,17 +77,12 @@ class VoiceStage:
         if n == 0:
             half["n"], half["note"], half["voices"], half["velocity"] = 0, -1, 0, 0
         else:
-            if self._work is None or self._work.shape != pool.s.shape:  # only after a pool rebuild
-                self._work = np.empty(pool.s.shape, complex)
-                self._mag = np.empty(pool.s.shape)
-                self._bound = np.empty(pool.s.shape[0])
-            np.multiply(pool.g[:n], pool.s[:n], out=self._work[:n])
-            np.abs(self._work[:n], out=self._mag[:n])
-            np.sum(self._mag[:n], axis=1, out=self._bound[:n])
-            v = int(np.argmax(self._bound[:n]))
+            v = engine.loudest_voice()
             m = min(pool.modes, MAX_MODES)
             gain = OUTPUT_SCALE * 10 ** (engine.settings.get("output.gain_db") / 20) * host_gain
-            np.multiply(self._mag[v, :m], gain, out=half["levels"][:m])
+            np.multiply(pool.g[v, :m], pool.s[v, :m], out=self._work[:m])
+            np.abs(self._work[:m], out=self._mag[:m])
+            np.multiply(self._mag[:m], gain, out=half["levels"][:m])
             np.multiply(pool.omega[v, :m], 1 / (2 * np.pi), out=half["freqs"][:m])
             half["n"], half["note"], half["velocity"] = m, int(pool.note[v]), int(pool.velocity[v])
             half["voices"] = int(np.count_nonzero(pool.state[:n] != FADING))
