@@ -99,6 +99,11 @@ class Host:
     def log(self) -> str:
         return self.log_path.read_text(errors="replace")
 
+    def xruns(self) -> int:
+        """Xruns the host has counted, by its latest status line (printed about once a second)."""
+        found = [st for st in map(jackutil.parse_status, self.log().splitlines()) if st is not None]
+        return found[-1].xruns if found else 0
+
     def stop(self, sig: int = signal.SIGINT, timeout_s: float = 15.0) -> int:
         if self.midi_out is not None:
             self.midi_out.close_port()
@@ -179,6 +184,23 @@ def test_silent_before_note_on_and_all_notes_off_silences_it(host, tmp_path):
     assert np.max(np.abs(after)) < 1e-4  # -80 dBFS: silent (the release T60 is 0.15 s)
 
 
+def undisturbed_take(host: Host, take, tries: int = 3) -> np.ndarray:
+    """``take()``'s recording, taken again (up to ``tries`` times) while the host counted xruns in it.
+
+    An xrun makes the server drop or repeat a period of what the host played: a step in the
+    recording and a shifted time line, a fault of the machine (this VM's dummy server has spells of
+    them), not of the sound. The checks then run on the last take whatever it holds.
+    """
+    for attempt in range(tries):
+        before = host.xruns()
+        x = take()
+        time.sleep(1.2)  # the status line after the take
+        if host.xruns() == before or attempt == tries - 1:
+            return x
+        print(f"take {attempt + 1}: {host.xruns() - before} xruns, taken again")
+    return x
+
+
 def _v14(position: float, entry: dict) -> int:
     x = (position - entry["low"]) / (entry["high"] - entry["low"])
     return int(round(x * 16383))
@@ -195,14 +217,18 @@ def test_pickup_position_controller_changes_harmonics_as_predicted(host, tmp_pat
     electronics and gain all cancel)."""
     entry = next(e for e in default_entries() if e.get("cc") == 1)
     va, vb = _v14(0.25, entry), _v14(0.10, entry)
-    host.reset()
-    host.cc(1, va >> 7)
-    host.cc(33, va & 127)
-    time.sleep(0.2)
-    x = record(host, tmp_path, 2.3, [
-        (0.3, lambda: host.send(0x90, 45, 90)),
-        (1.2, lambda: (host.cc(1, vb >> 7), host.cc(33, vb & 127))),
-    ])
+
+    def take():
+        host.reset()
+        host.cc(1, va >> 7)
+        host.cc(33, va & 127)
+        time.sleep(0.2)
+        return record(host, tmp_path, 2.3, [
+            (0.3, lambda: host.send(0x90, 45, 90)),
+            (1.2, lambda: (host.cc(1, vb >> 7), host.cc(33, vb & 127))),
+        ])
+
+    x = undisturbed_take(host, take)
     rate, i = host.rate, onset(x)
     f0 = equal_tempered_hz(45)
     k = np.arange(1, 9)
@@ -244,17 +270,21 @@ def test_pitch_bend_follows_the_range_set_by_rpn_0(host, tmp_path):
 def test_ctrl_c_stops_cleanly_with_a_fade_and_a_valid_recording(jack_server, tmp_path):
     """Ctrl-C (SIGINT; SIGTERM is checked in the server-loss test)."""
     sig = signal.SIGINT
-    rec_path = tmp_path / "take.wav"
-    h = Host(tmp_path, "s", jack_server.sample_rate_hz, jack_server.buffer_frames,
-             [*QUIET, "--record", str(rec_path)]).wait_ready()
-    try:
-        x = record(h, tmp_path, 3.0, [
-            (0.2, lambda: h.send(0x90, 57, 100)),
-            (1.4, lambda: h.proc.send_signal(sig)),
-        ])
-        code = h.proc.wait(15)
-    finally:
-        code = h.stop()
+    for attempt in range(3):  # again while the server disturbed the take (see undisturbed_take)
+        rec_path = tmp_path / f"take{attempt}.wav"
+        h = Host(tmp_path, f"s{attempt}", jack_server.sample_rate_hz, jack_server.buffer_frames,
+                 [*QUIET, "--record", str(rec_path)]).wait_ready()
+        try:
+            x = record(h, tmp_path, 3.0, [
+                (0.2, lambda h=h: h.send(0x90, 57, 100)),
+                (1.4, lambda h=h: h.proc.send_signal(sig)),
+            ])
+            code = h.proc.wait(15)
+        finally:
+            code = h.stop()
+        if "xruns 0," in h.log().rsplit("stopped", 1)[-1] or attempt == 2:
+            break
+        print(f"take {attempt + 1} had xruns, taken again")
     log = h.log()
     assert code == 0, log[-2000:]
     assert "stopped" in log and "recorded" in log

@@ -280,15 +280,18 @@ class EngineHost:
         self.guard.learn(took)
         self.render_load.add(took)
         self.router.after_block(now)
-        self._apply_gain(y)
+        steady = self._apply_gain(y)
         if out is not None:
             if out.shape[1] == 1:
                 out[:, 0] = y
             else:
                 out[:] = y[:, None]
         self.ring.push(y)
-        np.abs(y, out=self._abs)
-        peak = float(self._abs.max())
+        if steady:  # the limiter's own peak, scaled: two calls fewer per block
+            peak = self.engine.stats.peak * self._gain
+        else:
+            np.abs(y, out=self._abs)
+            peak = float(self._abs.max())
         if peak > self._peak_hold:
             self._peak_hold = peak
         gr = self.engine.stats.gain_reduction_db
@@ -298,14 +301,15 @@ class EngineHost:
         if self.blocks % self._ui_every == 0:
             self.voice_stage.stage(self.engine, self._gain)
 
-    def _apply_gain(self, y: np.ndarray) -> None:
+    def _apply_gain(self, y: np.ndarray) -> bool:
+        """The host's ramp-in and fade-out gain on ``y``, in place; True when it was one constant."""
         g, target = self._gain, self._gain_target
         if g == target:
             if g != 1.0:
                 y *= g
             if g == 0.0 and self.stopping:
                 self.faded = True
-            return
+            return True
         rate = 1.0 / ((RAMP_IN_S if target > g else FADE_OUT_S) * self.rate)
         buf = self._gain_buf
         np.multiply(self._idx, rate if target > g else -rate, out=buf)
@@ -318,6 +322,7 @@ class EngineHost:
         self._gain = float(buf[-1])
         if self._gain == 0.0 and self.stopping:
             self.faded = True
+        return False
 
     def _drain_inbox(self) -> None:
         engine = self.engine
