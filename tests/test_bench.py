@@ -248,3 +248,28 @@ def test_quick_bench_prints_every_figure_as_json(tmp_path):
     assert names == {"a_resonators_lfilter", "b_phasor_recursion", "c_karplus_strong"}
     assert len(result["targets"]) == 5
     assert all(t["met"] in (True, False) for t in result["targets"])
+
+
+def test_real_time_runs_merge_as_one_run_would_count():
+    # Taken in turns, each condition's runs are merged: the merged percentiles must be what one
+    # meter fed every callback of both runs reports, and the counts their sums.
+    from rtvoice.bench.realtime import hist_percentile, merge_runs
+    from rtvoice.host.meters import CallbackMeter
+
+    rng = np.random.default_rng(3)
+    period = 128 / 48000
+    a, b = rng.gamma(2.0, 0.02, 3000) * period, rng.gamma(5.0, 0.05, 1000) * period
+    meters = [CallbackMeter(period) for _ in range(3)]
+    for x, meter in ((a, meters[0]), (b, meters[1])):
+        for t in x:
+            meter.add(t)
+    for t in np.concatenate([a, b]):
+        meters[2].add(t)
+    runs = [{"audio": "x", "seconds": s, "blocks": n, "xruns": xr, "late": 0,
+             "load_hist": m.histogram_pairs(), "render_hist": m.histogram_pairs()}
+            for m, s, n, xr in ((meters[0], 8.0, 3000, 2), (meters[1], 2.7, 1000, 5))]
+    merged = merge_runs(runs)
+    assert merged["xruns"] == 7 and merged["blocks"] == 4000 and merged["segment_xruns"] == [2, 5]
+    for q, key in ((0.5, "load_median"), (0.99, "load_p99")):
+        assert merged[key] == meters[2].run_percentile(q)
+        assert hist_percentile(meters[0].histogram_pairs(), q) == meters[0].run_percentile(q)

@@ -12,6 +12,10 @@ audio server on stage does) and without it otherwise; the report says which.
 The engine process keeps a histogram of callback time over block period; its
 median and 99th percentile and the xrun count are reported for each scene
 headless and with the Textual UI drawing at its frame rate in this process.
+Each condition's time is taken in :data:`SEGMENTS` runs in turns with the other's
+(headless, UI, UI, headless, ...), and the runs' histograms and counts are merged:
+this machine has spells of xruns minutes long, and two minutes taken one after the
+other compared the spells, not the conditions.
 """
 
 from __future__ import annotations
@@ -22,6 +26,8 @@ import shutil
 import subprocess
 import time
 
+import numpy as np
+
 from rtvoice.bench.scenes import NOTES_PER_CHANNEL, feature_settings
 from rtvoice.procutil import scoped_environ, stop_process
 
@@ -30,6 +36,7 @@ PERIOD_FRAMES = 128
 VOICES, MODES = 32, 128
 RESTRIKE_S, SWING_S = 2.0, 0.05
 SCENES = {"ringing": False, "swinging": True}  # scene name: is a pickup swung
+SEGMENTS = 4  # each condition's time is split into this many runs, taken in turns with the other's
 
 
 SCHEDULING = {"real-time": ["-R", "-P", "70"], "ordinary": ["--no-realtime"]}
@@ -128,10 +135,37 @@ def _run_once(seconds: float, with_ui: bool, swing: bool) -> dict:
     out = {"audio": audio, "seconds": round(s.get("seconds", 0.0), 2), "blocks": s.get("blocks"),
            "load_median": s.get("load_median"), "load_p99": s.get("load_p99"), "xruns": s.get("xruns"),
            "late": s.get("late"),
-           "render_median": s.get("render_median"), "render_p99": s.get("render_p99")}
+           "render_median": s.get("render_median"), "render_p99": s.get("render_p99"),
+           "load_hist": s.get("load_hist", []), "render_hist": s.get("render_hist", [])}
     if with_ui:
         out["ui_frames_drawn"] = frames
     return out
+
+
+def hist_percentile(pairs: list, q: float) -> float:
+    """The q-quantile (0..1) of a merged [bin, count] histogram of 0.1 % bins (as CallbackMeter.run_percentile)."""
+    if not pairs:
+        return 0.0
+    bins, counts = np.array(sorted(pairs)).T
+    cum = np.cumsum(counts)
+    return (float(bins[np.searchsorted(cum, q * cum[-1])]) + 0.5) / 1000
+
+
+def merge_runs(runs: list[dict]) -> dict:
+    """One condition's figures over its segments: counts summed, percentiles from the merged histograms."""
+    merged: dict = {"audio": runs[0]["audio"], "segments": len(runs),
+                    "segment_xruns": [r["xruns"] for r in runs]}
+    for key in ("seconds", "blocks", "xruns", "late", "ui_frames_drawn"):
+        if key in runs[0]:
+            merged[key] = round(sum(r.get(key) or 0 for r in runs), 2)
+    for kind in ("load", "render"):
+        pairs: dict[int, int] = {}
+        for r in runs:
+            for b, c in r[f"{kind}_hist"]:
+                pairs[b] = pairs.get(b, 0) + c
+        merged[f"{kind}_median"] = hist_percentile([[b, c] for b, c in pairs.items()], 0.5)
+        merged[f"{kind}_p99"] = hist_percentile([[b, c] for b, c in pairs.items()], 0.99)
+    return merged
 
 
 def callback_distribution(seconds: float) -> dict:
@@ -145,8 +179,11 @@ def callback_distribution(seconds: float) -> dict:
                 scoped_environ({"JACK_DEFAULT_SERVER": name, "JACK_NO_START_SERVER": "1"}):
             result["server_scheduling"] = scheduling
             for scene, swing in SCENES.items():
-                result[scene] = {"without_ui": _run_once(seconds, with_ui=False, swing=swing),
-                                 "with_ui": _run_once(seconds, with_ui=True, swing=swing)}
+                runs: dict[bool, list] = {False: [], True: []}
+                for i in range(SEGMENTS):  # in turns, ABBA: a slow spell of the machine falls on both alike
+                    for with_ui in (False, True) if i % 2 == 0 else (True, False):
+                        runs[with_ui].append(_run_once(seconds / SEGMENTS, with_ui=with_ui, swing=swing))
+                result[scene] = {"without_ui": merge_runs(runs[False]), "with_ui": merge_runs(runs[True])}
     except Exception as err:  # noqa: BLE001 - a failing server must not stop the other benchmarks
         return {"available": False, "reason": f"{type(err).__name__}: {err}"}
     return result

@@ -125,7 +125,8 @@ def render_text(r: dict) -> str:
     out += ["", "## Real-time callback under the JACK dummy server (the host, every feature on)", ""]
     if rt.get("available"):
         out.append(f"- {rt['voices']} voices x {rt['modes']} modes, {rt['period_frames']}-frame periods; the server "
-                   f"ran with {rt.get('server_scheduling', 'ordinary')} scheduling")
+                   f"ran with {rt.get('server_scheduling', 'ordinary')} scheduling; each condition in "
+                   f"{rt['ringing']['without_ui'].get('segments', 1)} runs taken in turns with the other's, merged")
         scenes = (("ringing", "a chord of 32 notes strummed every 2 s (the target's scene)"),
                   ("swinging", "the same with a pickup swung 20 times a second"))
         for scene, what in scenes:
@@ -136,9 +137,11 @@ def render_text(r: dict) -> str:
                 render = (f" (the engine's render: median {_pct(m['render_median'])}, p99 {_pct(m['render_p99'])})"
                           if m.get("render_median") is not None else "")
                 late = f" ({m['late']} of them callbacks of ours that overran)" if m.get("late") is not None else ""
+                runs = (f", by run {', '.join(map(str, m['segment_xruns']))}" if len(m.get("segment_xruns", [])) > 1
+                        else "")
                 out.append(f"  - {label}: callback median {_pct(m['load_median'])}, p99 {_pct(m['load_p99'])} of "
                            f"the period{render} over {m['blocks']} blocks in {m['seconds']} s; xruns "
-                           f"{m['xruns']}{late}{extra}")
+                           f"{m['xruns']}{runs}{late}{extra}")
     else:
         out.append(f"- not measured: {rt['reason']}")
     out += _profile_text(r)

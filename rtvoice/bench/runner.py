@@ -177,7 +177,7 @@ def evaluate_targets(result: dict, grid, steady) -> list[dict]:
             f"{100 * swung['with_ui']['load_p99']:.1f} %)",
             f"p99 <= {100 * TARGET_CALLBACK_P99:.0f} % of the period",
             max(head["load_p99"], ui["load_p99"]) <= TARGET_CALLBACK_P99)
-        add("xruns with the UI drawing vs headless, same server, same minute's scene",
+        add("xruns with the UI drawing vs headless, same server, the scene taken in turns",
             f"{ui['xruns']} with the UI in {ui['seconds']} s, {head['xruns']} headless in {head['seconds']} s "
             f"(a pickup swung as well: {swung['with_ui']['xruns']}, {swung['without_ui']['xruns']})",
             "no more with the UI", ui["xruns"] <= head["xruns"])

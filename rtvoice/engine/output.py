@@ -101,17 +101,20 @@ class Limiter:
             self.peak = peak
             return
         # Release: the gain climbs back towards 1 (rising, so its least value is the first).
-        np.multiply(self._release_curve[:n], g0 - 1.0, out=ramp)
-        ramp += 1.0
-        least = float(ramp[0])
-        if peak * ramp[peak_at] > CEILING:
+        curve = self._release_curve
+        if peak * (1.0 + (g0 - 1.0) * curve[peak_at]) > CEILING:
             target = CEILING / peak
-            # Attack: a straight line from g0 to the target at the peak, then held.
+            # Attack: a straight line from g0 to the target at the peak, then held (the release
+            # curve is above the target from the peak on, since it rises and was above it there).
             steps = peak_at + 1
             np.multiply(self._idx[:steps], (target - g0) / steps, out=ramp[:steps])
             ramp[:steps] += g0
-            np.minimum(ramp[steps:], target, out=ramp[steps:])
+            ramp[steps:] = target
             least = min(float(ramp[0]), target)  # the line's first step, or the held target
+        else:
+            np.multiply(curve[:n], g0 - 1.0, out=ramp)
+            ramp += 1.0
+            least = float(ramp[0])
         x *= ramp
         self.gain = float(ramp[-1])
         if self.gain > self.RECOVERED:

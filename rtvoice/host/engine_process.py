@@ -489,6 +489,7 @@ class EngineHost:
             "load_median": self.load.run_percentile(0.5), "load_p99": self.load.run_percentile(0.99),
             "render_median": self.render_load.run_percentile(0.5),
             "render_p99": self.render_load.run_percentile(0.99),
+            "load_hist": self.load.histogram_pairs(), "render_hist": self.render_load.histogram_pairs(),
             "midi_events": self.midi_events, "notes_dropped": self.guard.dropped,
             "clock_resyncs": self.clock.resyncs, "rt_priority": self.rt_priority,
             "main_rt_priority": self.main_rt_priority,

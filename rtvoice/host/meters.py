@@ -51,6 +51,11 @@ class CallbackMeter:
         """(median, p99) over the recent window."""
         return median_p99(self._window[:min(self._count, self._window.shape[0])])
 
+    def histogram_pairs(self) -> list[list[int]]:
+        """The whole run's histogram as [bin, count] pairs of its non-empty 0.1 % bins (so runs can be merged)."""
+        nz = np.flatnonzero(self._hist)
+        return [[int(b), int(self._hist[b])] for b in nz]
+
     def run_percentile(self, q: float) -> float:
         """The q-quantile (0..1) over the whole run, to the histogram's 0.1 % resolution."""
         total = int(self._hist.sum())
