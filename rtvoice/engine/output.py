@@ -88,7 +88,7 @@ class Limiter:
         """(peak magnitude, its index) of ``x``; the peak is NaN or inf when ``x`` holds one."""
         work = self._work[: x.size]
         np.abs(x, out=work)
-        peak_at = int(np.argmax(work))  # argmax stops at the first NaN
+        peak_at = int(work.argmax())  # argmax stops at the first NaN
         return float(work[peak_at]), peak_at
 
     def apply(self, x: np.ndarray, peak: float, peak_at: int) -> None:
