@@ -21,7 +21,7 @@ from rtvoice.engine.voices import VoicePool
 DECAY_HOLD, DECAY_RELEASE, DECAY_FADE, DECAY_FADE_AFTER_RELEASE = 0, 1, 2, 3  # which decay rate its modes follow
 
 FEW = 4  # up to this many slots are copied one by one (measured: faster than a gather)
-_ROWS = ("A_rows", "p", "logp", "p_block", "h", "r")  # per-slot rows of the pool (slot is axis 0)
+_ROWS = ("A_rows", "p", "logp", "p_block", "p_block64", "h", "r")  # per-slot rows of the pool (slot is axis 0)
 
 
 def faded(decay: int) -> int:

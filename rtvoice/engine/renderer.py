@@ -7,7 +7,9 @@ How a block is computed. Every sounding mode m contributes Re(g_m s_m p_m^n) at
 sample n. With n = n1 + N1 n2 and p^n = A[n1] B[n2] (see :mod:`.voices`), the
 block for all voices at once is the complex product Y = (B * (g s))^T A of shape
 (N2, N1): a matrix-matrix product, so BLAS reuses each table entry N2 times
-instead of streaming an N x M table per block. Voices touched by an event inside
+instead of streaming an N x M table per block. C = B * (g s) is kept from block to
+block and advanced by p^N like the amplitudes (worked out afresh for slots that
+change otherwise, and for all every 40 ms). Voices touched by an event inside
 the block (note-on, note-off, steal) are rendered on an exact per-voice path with
 the event on its sample. Live pickup and gain changes are smoothed and ramped
 linearly across the block, so they neither click nor zipper.
@@ -129,6 +131,9 @@ class Engine:
         self._a_rows = self.pool.A_rows.reshape(slots * modes * 2, n1)
         self._b_t = self.pool.B_t.reshape(n2 + 1, slots * modes)
         self._touched = np.zeros(slots, bool)
+        self._stale = np.zeros(slots, bool)  # block coefficients to work out afresh (see _refresh_coefficients)
+        self._stale_list: list[int] = []
+        self._all_stale = True
         self._upto = np.zeros(slots, np.int64)
         self._touched_list: list[int] = []
         self._dirty = np.zeros(slots, bool)  # tables to rebuild (see _mark_tables)
@@ -322,19 +327,24 @@ class Engine:
         if n == 0:
             out[:] = 0.0
             self._clear_touched()
+            self._all_stale = True
             return
         self._flush_tables()
         views = self._views.get(n)
         if views is None:
             views = self._views[n] = _BulkViews(self, n)
         modes = pool.modes
-        sets = 2 if ramping else 1
-        for i in range(sets):
-            d = views.d[i]
-            np.multiply(views.g[i], views.s, out=views.d_by_voice[i], casting="same_kind")
+        ct0 = views.ct[0]
+        self._refresh_coefficients(views, n)
+        for v in self._touched_list:  # rendered on the exact path this block
+            ct0[:, v * modes:(v + 1) * modes] = 0.0
+        if ramping:  # the ramp's target weights: their coefficients afresh
+            d = views.d[1]
+            np.multiply(views.g[1], views.s, out=views.d_by_voice[1], casting="same_kind")
             for v in self._touched_list:
                 d[v * modes:(v + 1) * modes] = 0.0
-            np.multiply(views.b_t, d, out=views.ct[i])
+            np.multiply(views.b_t, d, out=views.ct[1])
+        sets = 2 if ramping else 1
         # Re(Y) = [Re C, Im C] . [Re A; -Im A]: one real product over 2 m rows.
         np.matmul(views.lhs[sets - 1], views.a_rows, out=views.y[sets - 1])
         if ramping:
@@ -351,7 +361,37 @@ class Engine:
         views.s *= views.p_block
         for v in self._touched_list:
             pool.s[v] = self._stash[v]
+            self._mark_stale(v)
+        # The next block's coefficients: this block's (the ramp target's, whose weights the voices now
+        # take) advanced by p^N, as the amplitudes were.
+        np.multiply(views.ct[1] if ramping else ct0, views.pb64, out=ct0)
         self._clear_touched()
+
+    def _refresh_coefficients(self, views: _BulkViews, n: int) -> None:
+        """Work out afresh C^T = B^T (g s) of the slots whose amplitudes, weights or tables changed
+        other than by a block's advance (all of them after a resync)."""
+        stale = self._stale_list
+        if self._all_stale or 4 * len(stale) > n:
+            np.multiply(views.g[0], views.s, out=views.d_by_voice[0], casting="same_kind")
+            np.multiply(views.b_t, views.d[0], out=views.ct[0])
+            self._all_stale = False
+        elif stale:
+            pool, modes = self.pool, self.pool.modes
+            d, ct0 = views.d[0], views.ct[0]
+            for v in stale:
+                if v < n:
+                    cols = slice(v * modes, (v + 1) * modes)
+                    np.multiply(pool.gf[v], pool.s[v], out=d[cols], casting="same_kind")
+                    np.multiply(views.b_t[:, cols], d[cols], out=ct0[:, cols])
+        for v in stale:
+            self._stale[v] = False
+        stale.clear()
+
+    def _mark_stale(self, v: int) -> None:
+        """Slot v's block coefficients no longer follow from its last ones: work them out next block."""
+        if not self._stale[v]:
+            self._stale[v] = True
+            self._stale_list.append(v)
 
     def _clear_touched(self) -> None:
         for v in self._touched_list:
@@ -482,6 +522,8 @@ class Engine:
                 if new:
                     self._tables.save(pool, np.array(list(new.values())), list(new))
             self._weigh(idx)
+            for v in self._dirty_list:
+                self._mark_stale(v)
             self._dirty[self._dirty_list] = False
             self._dirty_list.clear()
 
@@ -736,6 +778,7 @@ class Engine:
             self._drop_bad_voices()
             out[:] = 0.0
             self._filter.reset()
+            self._all_stale = True
             peak, peak_at = 0.0, 0
         limiter.apply(out, peak, peak_at)
         st = self.stats
@@ -750,6 +793,7 @@ class Engine:
         bad = ~np.all(np.isfinite(pool.s[: pool.n_active]), axis=1)
         for v in sorted(np.flatnonzero(bad), reverse=True):
             pool.retire(int(v))
+            self._mark_stale(int(v))
             self.stats.dropped_bad += 1
 
     def _retire(self) -> None:
@@ -761,6 +805,7 @@ class Engine:
             checks = self.stats.blocks // self._retire_every
             if checks % self._tiny_every == 0 or self._pending_rebuild is not None:
                 pool.clear_tiny_modes()
+                self._all_stale = True  # and the coefficients, advanced in single precision, are resynced
             pool.level[: pool.n_active] = pool.bound()
             bound = pool.level[: pool.n_active] * (OUTPUT_SCALE * max(self._gain, 1.0))
             dead = np.flatnonzero(~(bound >= RETIRE_LEVEL))  # catches NaN too
@@ -771,6 +816,7 @@ class Engine:
                 if not np.isfinite(bound[v]):
                     self.stats.dropped_bad += 1
                 pool.retire(int(v))
+                self._mark_stale(int(v))  # it holds the last slot's voice now
         self.stats.voices = pool.n_active
         if self._pending_rebuild is not None and pool.n_active == 0:
             self._pending_rebuild = None
@@ -815,6 +861,7 @@ class _BulkViews:
         m, n2 = n * pool.modes, pool.n2
         self.g = (pool.gf[:n], engine._gf_next[:n])  # the product weights, now and the ramp's target
         self.s, self.p_block = pool.s[:n], pool.p_block[:n]
+        self.pb64 = pool.p_block64[:n].reshape(n * pool.modes)
         self.d = tuple(engine._d64[i, :m] for i in range(2))
         self.d_by_voice = tuple(d.reshape(n, pool.modes) for d in self.d)
         self.b_t = engine._b_t[:n2, :m]

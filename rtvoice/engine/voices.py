@@ -84,6 +84,7 @@ class VoicePool:
         self.omega = np.zeros(shape)  # bent angular frequency, rad/s
         self.p = np.zeros(shape, complex)  # p, as the tables hold it
         self.p_block = np.zeros(shape, complex)  # p^N
+        self.p_block64 = np.zeros(shape, np.complex64)  # p^N in single precision (0 below 1e-30): advances C
         self.logp = np.zeros(shape, complex)  # log p = (-sigma + i omega) / fs
         # A_rows[v, m] = [Re A[v, m, :], -Im A[v, m, :]]; B_t[j, v, m] = B[v, m, j].
         self.A_rows = np.zeros((slots, modes, 2, self.n1), np.float32)
@@ -105,7 +106,8 @@ class VoicePool:
         # np.zeros maps its pages lazily; write them now, so the first use of a slot (in the
         # audio callback) takes no page faults.
         for arr in (self.s, self.g, self.h, self.gf, self.r, self.sigma, self.sigma_hold, self.omega_base, self.omega,
-                    self.p, self.p_block, self.logp, self.A_rows, self.B_t, self.deriv, self.audible):
+                    self.p, self.p_block, self.p_block64, self.logp, self.A_rows, self.B_t, self.deriv,
+                    self.audible):
             arr.fill(0.0)
         self.n_active = 0
 
@@ -140,7 +142,10 @@ class VoicePool:
         self.A_rows[slots, :, 0, :] = rows.real
         self.A_rows[slots, :, 1, :] = -rows.imag
         self.B_t[:, slots, :] = b
-        self.p_block[slots] = np.exp(logp * self.block)
+        p_block = np.exp(logp * self.block)
+        self.p_block[slots] = p_block
+        p_block[np.abs(p_block) < SILENT_MODE] = 0.0  # no single-precision subnormals
+        self.p_block64[slots] = p_block
         return p
 
     def segments(self, slots: np.ndarray, d: np.ndarray, count: int) -> np.ndarray:
@@ -170,7 +175,8 @@ class VoicePool:
         moved = -1
         if v != last:
             for arr in (self.s, self.g, self.h, self.gf, self.r, self.sigma, self.sigma_hold, self.omega_base,
-                        self.omega, self.p, self.p_block, self.logp, self.A_rows, self.deriv, self.audible,
+                        self.omega, self.p, self.p_block, self.p_block64, self.logp, self.A_rows, self.deriv,
+                        self.audible,
                         self.state, self.note, self.channel, self.order, self.fade_since, self.omega1, self.bend,
                         self.velocity, self.decay, self.epoch, self.level):
                 arr[v] = arr[last]
