@@ -163,8 +163,9 @@ def merge_runs(runs: list[dict]) -> dict:
         for r in runs:
             for b, c in r[f"{kind}_hist"]:
                 pairs[b] = pairs.get(b, 0) + c
-        merged[f"{kind}_median"] = hist_percentile([[b, c] for b, c in pairs.items()], 0.5)
-        merged[f"{kind}_p99"] = hist_percentile([[b, c] for b, c in pairs.items()], 0.99)
+        hist = [[b, c] for b, c in pairs.items()]
+        merged[f"{kind}_median"] = hist_percentile(hist, 0.5)
+        merged[f"{kind}_p99"] = hist_percentile(hist, 0.99)
     return merged
 
 

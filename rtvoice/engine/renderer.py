@@ -141,8 +141,7 @@ class Engine:
         self._changes: list[tuple] = []  # (slot, sample, kind, data) recorded by the first pass of a block
         self._sample_index = np.arange(n1 * n2)
         self._ramp_ext = np.concatenate([self._ramp, np.ones(n1 * n2)])  # ramp[start + j], past the end too
-        self._bound = np.zeros(slots)  # voice level bounds for stealing, valid in block _bound_block
-        self._bound_block = -1
+        self._bound_block = -1  # the block in which pool.level was last refreshed for stealing (see _bounds)
         self._stash = np.zeros((slots, modes), complex)
         self._views: dict[int, _BulkViews] = {}  # by number of active voices
         self._pickup_sums = PickupSums(modes)
@@ -339,11 +338,7 @@ class Engine:
         for v in self._touched_list:  # rendered on the exact path this block
             ct0[:, v * modes:(v + 1) * modes] = 0.0
         if ramping:  # the ramp's target weights: their coefficients afresh
-            d = views.d[1]
-            np.multiply(views.g[1], views.s, out=views.d_by_voice[1], casting="same_kind")
-            for v in self._touched_list:
-                d[v * modes:(v + 1) * modes] = 0.0
-            np.multiply(views.b_t, d, out=views.ct[1])
+            self._form_coefficients(views, 1, self._touched_list)
         sets = 2 if ramping else 1
         # Re(Y) = [Re C, Im C] . [Re A; -Im A]: one real product over 2 m rows.
         np.matmul(views.lhs[sets - 1], views.a_rows, out=views.y[sets - 1])
@@ -372,8 +367,7 @@ class Engine:
         other than by a block's advance (all of them after a resync)."""
         stale = self._stale_list
         if self._all_stale or 4 * len(stale) > n:
-            np.multiply(views.g[0], views.s, out=views.d_by_voice[0], casting="same_kind")
-            np.multiply(views.b_t, views.d[0], out=views.ct[0])
+            self._form_coefficients(views, 0)
             self._all_stale = False
         elif stale:
             pool, modes = self.pool, self.pool.modes
@@ -386,6 +380,15 @@ class Engine:
         for v in stale:
             self._stale[v] = False
         stale.clear()
+
+    def _form_coefficients(self, views: _BulkViews, i: int, silent: Iterable[int] = ()) -> None:
+        """C^T = B^T (g s) of every active slot for weight set ``i`` (0 now, 1 the ramp's target),
+        with the columns of the ``silent`` slots zero."""
+        modes, d = self.pool.modes, views.d[i]
+        np.multiply(views.g[i], views.s, out=views.d_by_voice[i], casting="same_kind")
+        for v in silent:
+            d[v * modes:(v + 1) * modes] = 0.0
+        np.multiply(views.b_t, d, out=views.ct[i])
 
     def _mark_stale(self, v: int) -> None:
         """Slot v's block coefficients no longer follow from its last ones: work them out next block."""
@@ -575,7 +578,7 @@ class Engine:
         self._order += 1
         pool.order[v] = self._order
         initial = self.excitation_hook(ch) if self.excitation_hook is not None else None
-        self._bound[v] = pool.level[v] = self._start_bound(velocity, initial)  # its level is not set up yet
+        pool.level[v] = self._start_bound(velocity, initial)  # its level is not set up yet
         self._changes.append((v, at, START, (ch, note, velocity, initial, fresh)))
 
     def _bounds(self) -> np.ndarray:
@@ -585,14 +588,14 @@ class Engine:
         choice of the quietest voice is the same as with fresh bounds but for near ties.
         Voices started in this block have the level their note-on gives them.
         """
+        pool = self.pool
         if self._bound_block != self.stats.blocks:
-            pool = self.pool
-            self._bound[: pool.n_active] = pool.bound()
+            pool.level[: pool.n_active] = pool.bound()
             for v, _, kind, data in self._changes:
                 if kind == START:
-                    self._bound[v] = self._start_bound(data[2], data[3])
+                    pool.level[v] = self._start_bound(data[2], data[3])
             self._bound_block = self.stats.blocks
-        return self._bound
+        return pool.level
 
     def _start_voices(self, starts: list) -> None:
         """Set up the voices of START changes (all at once): amplitudes, frequencies, decay, weights."""
@@ -792,9 +795,13 @@ class Engine:
         pool = self.pool
         bad = ~np.all(np.isfinite(pool.s[: pool.n_active]), axis=1)
         for v in sorted(np.flatnonzero(bad), reverse=True):
-            pool.retire(int(v))
-            self._mark_stale(int(v))
+            self._free_slot(int(v))
             self.stats.dropped_bad += 1
+
+    def _free_slot(self, v: int) -> None:
+        """Retire slot v's voice; the pool moves its last voice into v, whose coefficients are then stale."""
+        self.pool.retire(v)
+        self._mark_stale(v)
 
     def _retire(self) -> None:
         pool = self.pool
@@ -815,8 +822,7 @@ class Engine:
             for v in dead[::-1]:
                 if not np.isfinite(bound[v]):
                     self.stats.dropped_bad += 1
-                pool.retire(int(v))
-                self._mark_stale(int(v))  # it holds the last slot's voice now
+                self._free_slot(int(v))
         self.stats.voices = pool.n_active
         if self._pending_rebuild is not None and pool.n_active == 0:
             self._pending_rebuild = None
