@@ -1,7 +1,8 @@
 """Measurements on rendered audio, written independently of the engine's internals.
 
 Everything here works on plain sample arrays: FFT peak picking, least-squares
-fits of damped sinusoids, envelope decay fits.
+fits of damped sinusoids, envelope decay fits, and two measurements that hold through the steps
+an audio server's xrun leaves in a recording (a period dropped, repeated or silent).
 """
 
 from __future__ import annotations
@@ -20,6 +21,45 @@ def peak_frequency_hz(x: np.ndarray, fs: float, guess_hz: float, search_hz: floa
     a, b, c = np.log(spec[i - 1 : i + 2] + 1e-300)
     offset = 0.5 * (a - c) / (a - 2 * b + c)
     return float(freqs[i] + offset * fs / (pad * n))
+
+
+def steady_frequency_hz(x: np.ndarray, fs: float, guess_hz: float, search_hz: float, cycles: int = 4) -> float:
+    """Frequency of the partial near ``guess_hz`` (within ``search_hz``) from its phase advance,
+    unmoved by a few steps in ``x``.
+
+    The FFT peak of the whole window (:func:`peak_frequency_hz`) is refined by demodulating at it,
+    measuring the phase of each Hann-weighted block of ``2 * cycles`` periods (hop ``cycles``
+    periods; the Hann window's sidelobes keep the other harmonics out) and taking the median of
+    the phase advance from block to block. A step in the recording falls into two or three of the
+    advances; the median ignores them as long as they are fewer than half. On a clean tone this
+    is the phase-vocoder frequency estimate (Flanagan & Golden, "Phase Vocoder", Bell System
+    Technical Journal 45(9), 1966).
+    """
+    coarse = peak_frequency_hz(x, fs, guess_hz, search_hz)
+    hop = int(round(cycles * fs / coarse))
+    length = 2 * hop
+    starts = np.arange(0, x.size - length + 1, hop)
+    if starts.size < 3:
+        raise ValueError(f"{x.size} samples hold too few blocks of {length} for a median")
+    n = np.arange(x.size)
+    z = x * np.exp(-2j * np.pi * coarse * n / fs)
+    win = np.hanning(length)
+    phasors = np.array([np.dot(z[s : s + length], win) for s in starts])
+    advance = np.angle(phasors[1:] * np.conj(phasors[:-1]))
+    return float(coarse + np.median(advance) * fs / (2 * np.pi * hop))
+
+
+def relative_levels_through_steps(x: np.ndarray, fs: float, freqs_hz: np.ndarray, sigmas: np.ndarray,
+                                  parts: int = 6) -> np.ndarray:
+    """Level of each partial relative to the first, |c_k| / |c_0| by :func:`fit_damped_modes`,
+    fitted on each of ``parts`` equal pieces of ``x`` and the median taken across pieces, so that
+    a step in one or two pieces (a period dropped or repeated by the server) does not move it."""
+    n = x.size // parts
+    rel = []
+    for j in range(parts):
+        c = np.abs(fit_damped_modes(x[j * n : (j + 1) * n], fs, freqs_hz, sigmas))
+        rel.append(c / c[0])
+    return np.median(np.array(rel), axis=0)
 
 
 def fit_damped_modes(x: np.ndarray, fs: float, freqs_hz: np.ndarray, sigmas: np.ndarray) -> np.ndarray:
