@@ -7,8 +7,9 @@ How a block is computed. Every sounding mode m contributes Re(g_m s_m p_m^n) at
 sample n. With n = n1 + N1 n2 and p^n = A[n1] B[n2] (see :mod:`.voices`), the
 block for all voices at once is the complex product Y = (B * (g s))^T A of shape
 (N2, N1): a matrix-matrix product, so BLAS reuses each table entry N2 times
-instead of streaming an N x M table per block. C = B * (g s) is kept from block to
-block and advanced by p^N like the amplitudes (worked out afresh for slots that
+instead of streaming an N x M table per block. The product runs over the modes
+that can still be heard only (:mod:`.live_modes`). C = B * (g s) is kept from block
+to block and advanced by p^N like the amplitudes (worked out afresh for slots that
 change otherwise, and for all every 40 ms). Voices touched by an event inside
 the block (note-on, note-off, steal) are rendered on an exact per-voice path with
 the event on its sample. Live pickup and gain changes are smoothed and ramped
@@ -29,6 +30,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from rtvoice.engine import midi
+from rtvoice.engine.live_modes import LiveProduct
 from rtvoice.engine.modal_filter import ModalFilter
 from rtvoice.engine.note_starts import NoteStarts
 from rtvoice.engine.note_tables import DECAY_HOLD, DECAY_RELEASE, NoteTables, faded
@@ -125,11 +127,8 @@ class Engine:
         n1, n2 = self.pool.n1, self.pool.n2
         self._g_next = np.zeros((slots, modes), complex)  # the ramp's target pickup weights
         self._gf_next = np.zeros((slots, modes), complex)  # and their product weights (g h)
-        self._d64 = np.zeros((2, slots * modes), np.complex64)  # g s now, and with the ramp's target g
-        self._ct = np.zeros((2 * n2, slots * modes), np.complex64)  # C^T: rows B[j] * d, contiguous
-        self._y = np.zeros((2 * n2, n1), np.float32)
-        self._a_rows = self.pool.A_rows.reshape(slots * modes * 2, n1)
-        self._b_t = self.pool.B_t.reshape(n2 + 1, slots * modes)
+        self._live = LiveProduct(self.pool)  # the block product's operands, for the modes still heard
+        self._sweep_done = False  # a tiny-mode sweep ran: the live prefixes may have shrunk
         self._touched = np.zeros(slots, bool)
         self._stale = np.zeros(slots, bool)  # block coefficients to work out afresh (see _refresh_coefficients)
         self._stale_list: list[int] = []
@@ -143,7 +142,7 @@ class Engine:
         self._ramp_ext = np.concatenate([self._ramp, np.ones(n1 * n2)])  # ramp[start + j], past the end too
         self._bound_block = -1  # the block in which pool.level was last refreshed for stealing (see _bounds)
         self._stash = np.zeros((slots, modes), complex)
-        self._views: dict[int, _BulkViews] = {}  # by number of active voices
+        self._views: dict[int, tuple[np.ndarray, np.ndarray]] = {}  # (s, p_block) by number of active voices
         self._pickup_sums = PickupSums(modes)
         self._tables = NoteTables(self.pool, 3 * slots)  # room for each slot's note held, released and faded
         self._starts = NoteStarts(modes, self.fs)
@@ -331,64 +330,59 @@ class Engine:
         self._flush_tables()
         views = self._views.get(n)
         if views is None:
-            views = self._views[n] = _BulkViews(self, n)
-        modes = pool.modes
-        ct0 = views.ct[0]
-        self._refresh_coefficients(views, n)
+            views = self._views[n] = (pool.s[:n], pool.p_block[:n])
+        live = self._live
+        if not live.valid or live.n != n:
+            live.pack(n)
+            self._all_stale = True
+        elif self._sweep_done:
+            k = live.shrunk(n)
+            if k is not None:
+                live.pack(n, k)
+                self._all_stale = True
+        self._sweep_done = False
+        self._refresh_coefficients(n)
         for v in self._touched_list:  # rendered on the exact path this block
-            ct0[:, v * modes:(v + 1) * modes] = 0.0
+            live.silence(v)
         if ramping:  # the ramp's target weights: their coefficients afresh
-            self._form_coefficients(views, 1, self._touched_list)
-        sets = 2 if ramping else 1
-        # Re(Y) = [Re C, Im C] . [Re A; -Im A]: one real product over 2 m rows.
-        np.matmul(views.lhs[sets - 1], views.a_rows, out=views.y[sets - 1])
+            live.form(1, self._gf_next, self._touched_list)
+        # Re(Y) = [Re C, Im C] . [Re A; -Im A]: one real product over 2 L rows.
+        live.product(2 if ramping else 1)
         if ramping:
-            old, new = views.samples
+            old, new = live.samples
             np.subtract(new, old, out=out)
             out *= self._ramp
             out += old
         else:
-            out[:] = views.samples[0]
+            out[:] = live.samples[0]
         if self._exact_used:
             out += self._exact
         for v in self._touched_list:
             self._stash[v] = pool.s[v]
-        views.s *= views.p_block
+        s_now, p_block = views
+        s_now *= p_block
         for v in self._touched_list:
             pool.s[v] = self._stash[v]
             self._mark_stale(v)
         # The next block's coefficients: this block's (the ramp target's, whose weights the voices now
         # take) advanced by p^N, as the amplitudes were.
-        np.multiply(views.ct[1] if ramping else ct0, views.pb64, out=ct0)
+        live.advance(ramping)
         self._clear_touched()
 
-    def _refresh_coefficients(self, views: _BulkViews, n: int) -> None:
+    def _refresh_coefficients(self, n: int) -> None:
         """Work out afresh C^T = B^T (g s) of the slots whose amplitudes, weights or tables changed
-        other than by a block's advance (all of them after a resync)."""
+        other than by a block's advance (all of them after a resync or a new packing)."""
         stale = self._stale_list
         if self._all_stale or 4 * len(stale) > n:
-            self._form_coefficients(views, 0)
+            self._live.form(0, self.pool.gf)
             self._all_stale = False
         elif stale:
-            pool, modes = self.pool, self.pool.modes
-            d, ct0 = views.d[0], views.ct[0]
             for v in stale:
                 if v < n:
-                    cols = slice(v * modes, (v + 1) * modes)
-                    np.multiply(pool.gf[v], pool.s[v], out=d[cols], casting="same_kind")
-                    np.multiply(views.b_t[:, cols], d[cols], out=ct0[:, cols])
+                    self._live.refresh(v)
         for v in stale:
             self._stale[v] = False
         stale.clear()
-
-    def _form_coefficients(self, views: _BulkViews, i: int, silent: Iterable[int] = ()) -> None:
-        """C^T = B^T (g s) of every active slot for weight set ``i`` (0 now, 1 the ramp's target),
-        with the columns of the ``silent`` slots zero."""
-        modes, d = self.pool.modes, views.d[i]
-        np.multiply(views.g[i], views.s, out=views.d_by_voice[i], casting="same_kind")
-        for v in silent:
-            d[v * modes:(v + 1) * modes] = 0.0
-        np.multiply(views.b_t, d, out=views.ct[i])
 
     def _mark_stale(self, v: int) -> None:
         """Slot v's block coefficients no longer follow from its last ones: work them out next block."""
@@ -525,6 +519,7 @@ class Engine:
                 if new:
                     self._tables.save(pool, np.array(list(new.values())), list(new))
             self._weigh(idx)
+            self._live.valid = False  # the packed tables are copies
             for v in self._dirty_list:
                 self._mark_stale(v)
             self._dirty[self._dirty_list] = False
@@ -800,7 +795,7 @@ class Engine:
 
     def _free_slot(self, v: int) -> None:
         """Retire slot v's voice; the pool moves its last voice into v, whose coefficients are then stale."""
-        self.pool.retire(v)
+        self._live.retire(v, self.pool.retire(v))
         self._mark_stale(v)
 
     def _retire(self) -> None:
@@ -813,6 +808,7 @@ class Engine:
             if checks % self._tiny_every == 0 or self._pending_rebuild is not None:
                 pool.clear_tiny_modes()
                 self._all_stale = True  # and the coefficients, advanced in single precision, are resynced
+                self._sweep_done = True  # and the modes that died leave the product
             pool.level[: pool.n_active] = pool.bound()
             bound = pool.level[: pool.n_active] * (OUTPUT_SCALE * max(self._gain, 1.0))
             dead = np.flatnonzero(~(bound >= RETIRE_LEVEL))  # catches NaN too
@@ -857,27 +853,6 @@ def as_run(idx: slice | np.ndarray) -> slice | np.ndarray:
     if int(idx[-1]) - first != count - 1 or (count > 2 and not bool((np.diff(idx) == 1).all())):
         return idx
     return slice(first, first + count)
-
-
-class _BulkViews:
-    """The slices the block product uses for ``n`` active voices, made once (views cost time per block)."""
-
-    def __init__(self, engine: Engine, n: int):
-        pool = engine.pool
-        m, n2 = n * pool.modes, pool.n2
-        self.g = (pool.gf[:n], engine._gf_next[:n])  # the product weights, now and the ramp's target
-        self.s, self.p_block = pool.s[:n], pool.p_block[:n]
-        self.pb64 = pool.p_block64[:n].reshape(n * pool.modes)
-        self.d = tuple(engine._d64[i, :m] for i in range(2))
-        self.d_by_voice = tuple(d.reshape(n, pool.modes) for d in self.d)
-        self.b_t = engine._b_t[:n2, :m]
-        self.ct = tuple(engine._ct[i * n2:(i + 1) * n2, :m] for i in range(2))
-        self.lhs = tuple(engine._ct[: sets * n2, :m].view(np.float32) for sets in (1, 2))
-        self.a_rows = engine._a_rows[: 2 * m]
-        self.y = tuple(engine._y[: sets * n2] for sets in (1, 2))
-        flat = engine._y.reshape(-1)
-        half = pool.n1 * n2
-        self.samples = (flat[: engine.block], flat[half: half + engine.block])  # set 0 (g now), set 1 (target g)
 
 
 __all__ = ["CEILING", "Engine", "EngineStats", "Event"]
