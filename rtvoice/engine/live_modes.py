@@ -15,9 +15,9 @@ afresh when a note starts or tables are rebuilt, and at the engine's tiny-mode s
 when the prefixes have shrunk; between those the prefixes only hold modes that were
 live, so nothing is lost. A voice that retires leaves a hole instead (its columns
 read the zeroed amplitudes of the slot the pool emptied) and the voice the pool
-moves into its slot keeps its columns: a few slice operations, not a new packing. A mode left out
-contributes |g s| < 1e-15 |g| to a sample (|g| is at most a few hundred): below
--250 dBFS, far under the single-precision product's own rounding.
+moves into its slot keeps its columns: a few slice operations, not a new packing.
+A mode left out contributes |g s| < 1e-15 |g| to a sample (|g| is at most a few
+hundred): below -250 dBFS, far under the single-precision product's own rounding.
 """
 
 from __future__ import annotations
@@ -78,12 +78,19 @@ class LiveProduct:
         last = np.argmax(heard[:, ::-1], axis=1)
         return np.where(heard.any(axis=1), pool.modes - last, 0)
 
-    def shrunk(self, n: int) -> np.ndarray | None:
-        """The live prefixes of slots 0..n-1 when they differ from the packed ones (for a packing
-        that is valid otherwise), else None."""
-        k = self.live_prefixes(n)
-        same = n == self.n and not self.holes and np.array_equal(k, self.live[:n])
-        return None if same else k
+    def prepare(self, n: int, swept: bool) -> bool:
+        """Make the packing hold active slots 0..n-1: packed afresh when it is not valid or holds
+        other slots, and after a tiny-mode sweep (``swept``) when the prefixes shrank or retired
+        voices left holes. True when it packed: every coefficient must then be formed afresh."""
+        if not self.valid or n != self.n:
+            self.pack(n)
+            return True
+        if swept:
+            k = self.live_prefixes(n)
+            if self.holes or not np.array_equal(k, self.live[:n]):
+                self.pack(n, k)
+                return True
+        return False
 
     def pack(self, n: int, k: np.ndarray | None = None) -> None:
         """Pack the live prefixes ``k`` (worked out when None) of slots 0..n-1, copying their tables;

@@ -332,14 +332,8 @@ class Engine:
         if views is None:
             views = self._views[n] = (pool.s[:n], pool.p_block[:n])
         live = self._live
-        if not live.valid or live.n != n:
-            live.pack(n)
+        if live.prepare(n, self._sweep_done):
             self._all_stale = True
-        elif self._sweep_done:
-            k = live.shrunk(n)
-            if k is not None:
-                live.pack(n, k)
-                self._all_stale = True
         self._sweep_done = False
         self._refresh_coefficients(n)
         for v in self._touched_list:  # rendered on the exact path this block
