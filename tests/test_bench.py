@@ -273,3 +273,55 @@ def test_real_time_runs_merge_as_one_run_would_count():
     for q, key in ((0.5, "load_median"), (0.99, "load_p99")):
         assert merged[key] == meters[2].run_percentile(q)
         assert hist_percentile(meters[0].histogram_pairs(), q) == meters[0].run_percentile(q)
+
+
+def test_more_xruns_p_is_the_exact_conditional_test_of_two_poisson_counts():
+    # Worked by hand from the binomial law (Przyborowski & Wilenski 1940, cited from memory): with
+    # equal times, given 4 xruns in all, P(A has >= 3) = (C(4,3) + C(4,4)) / 2^4 = 5/16.
+    from rtvoice.bench.realtime import more_xruns_p
+
+    assert more_xruns_p(3, 60.0, 1, 60.0) == pytest.approx(5 / 16)
+    # A ran three times as long: p = 3/4 per xrun, P(A has >= 3 of 3) = 27/64.
+    assert more_xruns_p(3, 30.0, 0, 10.0) == pytest.approx(27 / 64)
+    assert more_xruns_p(0, 60.0, 0, 60.0) == 1.0
+    assert more_xruns_p(200, 60.0, 100, 60.0) < 1e-6  # twice the rate over a minute is no chance
+    assert more_xruns_p(100, 60.0, 200, 60.0) > 0.999
+
+
+def test_live_columns_count_the_product_and_scale_the_efficiency():
+    # The grid's live-mode efficiency: the bare time scaled to the columns the engine multiplied.
+    from rtvoice.bench.grid import GridPoint, time_cell
+    from rtvoice.bench.limits import BareProduct
+    from rtvoice.bench.timing import Timing
+
+    chord = HeldChord.start(4, 128, 128, ramps=False)
+    engine = chord.engine
+    assert 0 < engine.live_columns <= 4 * 128
+    assert engine.live_columns == int(engine._live.live_prefixes(4).sum())  # packed afresh at the note-ons
+    first = engine.live_columns
+    for _ in range(1000):  # 2.7 s: the sweeps drop the modes that died
+        chord.render()
+    assert engine.live_columns < first
+    engine.render([(0, 0xB0, 120, 0)])  # all sound off: after the fade nothing sounds, nothing is multiplied
+    for _ in range(200):
+        chord.render()
+    assert engine.pool.n_active == 0 and engine.live_columns == 0
+
+    t = Timing(100.0, 150.0, 100.0, 90.0, 200.0, 10)
+    bare = BareProduct(512, 128, Timing(80.0, 90.0, 80.0, 70.0, 100.0, 10), 0)
+    point = GridPoint(4, 128, 128, False, 4, t, bare, live_columns=256.0)
+    assert point.efficiency == pytest.approx(0.8) and point.efficiency_live == pytest.approx(0.4)
+    engine_t, _, active, columns = time_cell(4, 128, 128, repeats=20, ramps=False, warmup=2)
+    assert active == 4 and 0 < columns <= 512
+
+
+@pytest.mark.slow
+def test_idle_client_counts_blocks_of_the_server_period(jack_server):
+    # The bench's xrun floor: a client writing silence runs one callback per period of the real server.
+    proc = subprocess.run([sys.executable, "-m", "rtvoice.bench.idle_client", "2", str(jack_server.buffer_frames)],
+                          capture_output=True, text=True, timeout=60, check=False)
+    assert proc.returncode == 0, proc.stderr
+    got = json.loads(proc.stdout.strip().splitlines()[-1])
+    expected = got["seconds"] * jack_server.sample_rate_hz / jack_server.buffer_frames
+    assert got["blocks"] == pytest.approx(expected, rel=0.1)
+    assert 0 <= got["xruns"] < got["blocks"]

@@ -25,6 +25,7 @@ class GridPoint:
     active: int  # voices actually sounding while timed
     engine: Timing
     bare: BareProduct
+    live_columns: float = 0.0  # mean columns of the engine's product while timed (its modes still heard)
 
     @property
     def total_modes(self) -> int:
@@ -48,23 +49,44 @@ class GridPoint:
         """Engine throughput over bare-product throughput (same modes, same block)."""
         return self.bare.timing.median_us / self.engine.median_us
 
+    @property
+    def efficiency_live(self) -> float:
+        """Efficiency over the modes the engine actually multiplied (its live columns, see
+        :mod:`rtvoice.engine.live_modes`): the bare product's time scaled to that many modes,
+        over the engine's. Scaling the bare time in proportion to the modes leaves its fixed
+        cost unscaled down, so this reads low, never high."""
+        if not self.live_columns:
+            return 0.0
+        return self.bare.timing.median_us * self.live_columns / self.total_modes / self.engine.median_us
+
     def as_dict(self) -> dict:
         return {
             "voices": self.voices, "modes_per_voice": self.modes, "total_modes": self.total_modes,
             "block": self.block, "ramps": self.ramps, "active_voices": self.active,
             "engine": self.engine.as_dict(), "bare_product": self.bare.timing.as_dict(),
             "load_median": round(self.load, 4), "load_p99": round(self.load_p99, 4),
-            "efficiency": round(self.efficiency, 3),
+            "efficiency": round(self.efficiency, 3), "live_columns": round(self.live_columns, 1),
+            "efficiency_live": round(self.efficiency_live, 3),
         }
 
 
 def time_cell(voices: int, modes: int, block: int, repeats: int, ramps: bool = True,
-              warmup: int = 20) -> tuple[Timing, BareProduct, int]:
-    """The engine's block and the bare product of the same shape, timed in turns (see time_in_turns)."""
+              warmup: int = 20) -> tuple[Timing, BareProduct, int, float]:
+    """The engine's block and the bare product of the same shape, timed in turns (see time_in_turns),
+    the voices sounding and the mean columns of the engine's product over the timed blocks."""
     chord = HeldChord.start(voices, modes, block, ramps)
     product, nbytes = factored_product(voices * modes, block)
-    engine_t, bare_t = time_in_turns([chord.render, product], repeats, warmup, between=[chord.swing, None])
-    return engine_t, BareProduct(voices * modes, block, bare_t, nbytes), chord.active
+    columns: list[int] = []
+
+    def step(i: int) -> None:  # untimed: what the last block multiplied, and the pickup swing
+        if i > warmup:
+            columns.append(chord.engine.live_columns)
+        chord.swing(i)
+
+    engine_t, bare_t = time_in_turns([chord.render, product], repeats, warmup, between=[step, None])
+    columns.append(chord.engine.live_columns)
+    return (engine_t, BareProduct(voices * modes, block, bare_t, nbytes), chord.active,
+            sum(columns) / len(columns))
 
 
 def run_grid(voices_list, modes_list, blocks, repeats: int, ramps: bool = True,
@@ -73,8 +95,8 @@ def run_grid(voices_list, modes_list, blocks, repeats: int, ramps: bool = True,
     for block in blocks:
         for modes in modes_list:
             for voices in voices_list:
-                timing, bare, active = time_cell(voices, modes, block, repeats, ramps)
-                points.append(GridPoint(voices, modes, block, ramps, active, timing, bare))
+                timing, bare, active, columns = time_cell(voices, modes, block, repeats, ramps)
+                points.append(GridPoint(voices, modes, block, ramps, active, timing, bare, columns))
                 if progress:
                     progress(f"engine {voices}x{modes} @{block}: {timing.median_us:.0f} us")
     return points

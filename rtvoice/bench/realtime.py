@@ -9,6 +9,9 @@ every two seconds, so 32 voices ring), and "swinging", the same with a pickup sw
 smoothing ramp then runs in nearly every block, which doubles the engine's work).
 The server runs with real-time scheduling where the machine allows it (as an
 audio server on stage does) and without it otherwise; the report says which.
+In the target's scene an idle client (:mod:`rtvoice.bench.idle_client`, a callback that
+only writes silence) is taken in turns with both: its xruns are the server's and the
+machine's own, the floor the host's counts are read against.
 The engine process keeps a histogram of callback time over block period; its
 median and 99th percentile and the xrun count are reported for each scene
 headless and with the Textual UI drawing at its frame rate in this process.
@@ -22,8 +25,10 @@ from __future__ import annotations
 
 import asyncio
 import contextlib
+import json
 import shutil
 import subprocess
+import sys
 import time
 
 import numpy as np
@@ -142,6 +147,32 @@ def _run_once(seconds: float, with_ui: bool, swing: bool) -> dict:
     return out
 
 
+def _run_idle(seconds: float) -> dict:
+    """The idle client for ``seconds`` on the current server, in a process of its own."""
+    proc = subprocess.run([sys.executable, "-m", "rtvoice.bench.idle_client", str(seconds), str(PERIOD_FRAMES)],
+                          capture_output=True, text=True, timeout=seconds + 30, check=False)
+    if proc.returncode != 0:
+        raise RuntimeError(f"idle client: {proc.stderr.strip().splitlines()[-1:] or proc.returncode}")
+    return json.loads(proc.stdout.strip().splitlines()[-1])
+
+
+def more_xruns_p(a: int, seconds_a: float, b: int, seconds_b: float) -> float:
+    """One-sided p-value that condition A's xrun rate exceeds B's, from counts a, b over their seconds.
+
+    Exact conditional test of two Poisson counts: given a + b, a is binomial with
+    p = t_a / (t_a + t_b) when the rates are equal (Przyborowski & Wilenski, Biometrika 31, 1940;
+    cited from memory).
+    Xruns come in spells, so they are over-dispersed against Poisson and this reads
+    significance too readily, never too rarely.
+    """
+    import scipy.stats
+
+    n = a + b
+    if n == 0:
+        return 1.0
+    return float(scipy.stats.binomtest(a, n, seconds_a / (seconds_a + seconds_b), alternative="greater").pvalue)
+
+
 def hist_percentile(pairs: list, q: float) -> float:
     """The q-quantile (0..1) of a merged [bin, count] histogram of 0.1 % bins (as CallbackMeter.run_percentile)."""
     if not pairs:
@@ -181,10 +212,25 @@ def callback_distribution(seconds: float) -> dict:
             result["server_scheduling"] = scheduling
             for scene, swing in SCENES.items():
                 runs: dict[bool, list] = {False: [], True: []}
-                for i in range(SEGMENTS):  # in turns, ABBA: a slow spell of the machine falls on both alike
-                    for with_ui in (False, True) if i % 2 == 0 else (True, False):
-                        runs[with_ui].append(_run_once(seconds / SEGMENTS, with_ui=with_ui, swing=swing))
-                result[scene] = {"without_ui": merge_runs(runs[False]), "with_ui": merge_runs(runs[True])}
+                idle: list[dict] = []
+                part = seconds / SEGMENTS
+                for i in range(SEGMENTS):  # in turns, ABBA: a slow spell of the machine falls on all alike
+                    order = ("headless", "ui", "idle") if i % 2 == 0 else ("idle", "ui", "headless")
+                    for what in order:
+                        if what == "idle":
+                            if not swing:  # the floor: once, in the target's scene
+                                idle.append(_run_idle(part))
+                        else:
+                            runs[what == "ui"].append(_run_once(part, with_ui=what == "ui", swing=swing))
+                head, ui = merge_runs(runs[False]), merge_runs(runs[True])
+                result[scene] = {"without_ui": head, "with_ui": ui,
+                                 "ui_more_xruns_p": round(more_xruns_p(ui["xruns"], ui["seconds"], head["xruns"],
+                                                                       head["seconds"]), 4)}
+                if idle:
+                    result[scene]["idle_client"] = {
+                        "seconds": round(sum(r["seconds"] for r in idle), 2),
+                        "blocks": sum(r["blocks"] for r in idle), "xruns": sum(r["xruns"] for r in idle),
+                        "segment_xruns": [r["xruns"] for r in idle]}
     except Exception as err:  # noqa: BLE001 - a failing server must not stop the other benchmarks
         return {"available": False, "reason": f"{type(err).__name__}: {err}"}
     return result

@@ -41,9 +41,10 @@ def grid_table(points: list[dict], block: int) -> str:
         rows.append([str(p["voices"]), str(p["modes_per_voice"]), str(p["total_modes"]), str(p["active_voices"]),
                      f"{p['engine']['median_us']:.0f}", f"{p['engine']['p99_us']:.0f}",
                      _pct(p["load_median"]), _pct(p["load_p99"]),
-                     f"{p['bare_product']['median_us']:.1f}", f"{p['efficiency']:.2f}"])
+                     f"{p['bare_product']['median_us']:.1f}", f"{p['efficiency']:.2f}",
+                     f"{p.get('live_columns', 0):.0f}", f"{p.get('efficiency_live', 0):.2f}"])
     return _table(["voices", "modes", "total", "active", "median us", "p99 us", "load", "load p99",
-                   "bare us", "efficiency"], rows)
+                   "bare us", "efficiency", "live", "eff. live"], rows)
 
 
 def _profile_text(r: dict) -> list[str]:
@@ -77,7 +78,11 @@ def render_text(r: dict) -> str:
                 f"(period {b / r['sample_rate_hz'] * 1e6:.0f} us)", "", grid_table(r["grid"], b)]
     out += ["", "## Engine per block, steady (no ramp), 128 frames", "", grid_table(r["grid_steady"], 128)]
     out += ["", "`bare us`: the same-shape product alone (complex64, (N2 x M) times (M x N1)); "
-            "`efficiency` = bare / engine, i.e. engine throughput over bare-product throughput."]
+            "`efficiency` = bare / engine, i.e. engine throughput over bare-product throughput; "
+            "`live`: the mean columns of the engine's product while timed (it multiplies only the modes "
+            "still heard, below -250 dBFS the rest are left out); `eff. live` = (bare us x live / total) / "
+            "engine, the efficiency over the work the engine actually does (reads low: the bare product's "
+            "fixed cost is not scaled down)."]
     out += ["", "## Bare table product: memory bandwidth", "",
             "The direct formulation, a (block x modes) complex64 table of powers times the vector of mode "
             "amplitudes, streams the whole table every block.", "",
@@ -142,6 +147,14 @@ def render_text(r: dict) -> str:
                 out.append(f"  - {label}: callback median {_pct(m['load_median'])}, p99 {_pct(m['load_p99'])} of "
                            f"the period{render} over {m['blocks']} blocks in {m['seconds']} s; xruns "
                            f"{m['xruns']}{runs}{late}{extra}")
+            if "ui_more_xruns_p" in rt[scene]:
+                out.append(f"  - more xruns with the UI than headless by chance alone: one-sided p = "
+                           f"{rt[scene]['ui_more_xruns_p']:.2f} (exact test of two Poisson counts)")
+            idle = rt[scene].get("idle_client")
+            if idle:
+                out.append(f"  - an idle client (its callback writes silence), in turns with both: xruns "
+                           f"{idle['xruns']} in {idle['seconds']} s, by run "
+                           f"{', '.join(map(str, idle['segment_xruns']))}: the server's and the machine's own")
     else:
         out.append(f"- not measured: {rt['reason']}")
     out += _profile_text(r)

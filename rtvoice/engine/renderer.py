@@ -823,6 +823,11 @@ class Engine:
             self._gain_target = 10 ** (self.settings.get("output.gain_db") / 20)
 
     # -- what the meters and UI read ----------------------------------------------
+    @property
+    def live_columns(self) -> int:
+        """Columns of the last block's product: the modes still heard, packed (0 when silent)."""
+        return self._live.columns if self.pool.n_active else 0
+
     def loudest_voice(self) -> int:
         """Slot of the loudest active voice by the level bounds the retire check keeps (at most
         RETIRE_CHECK_S old: a display's choice, with no pass over every mode), or -1."""

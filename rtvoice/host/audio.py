@@ -9,6 +9,7 @@ when there is no output device (or ``--audio-device none``).
 from __future__ import annotations
 
 import ctypes
+import os
 import sys
 import threading
 import time
@@ -23,6 +24,25 @@ INSTALL_HINTS = {
 }
 
 Process = Callable[[object, int, bool], None]
+
+
+def request_realtime_priority(priority: int) -> int:
+    """Ask for SCHED_FIFO at ``priority`` for the calling thread (Linux applies it per thread).
+
+    An audio server normally gives its clients' threads real-time priority; a server run
+    without it (``jackd --no-realtime``) or the silent clock does not, and then any busy
+    process on the machine can pre-empt the callback. Returns the priority obtained (0: none).
+    """
+    if priority <= 0 or not hasattr(os, "sched_setscheduler"):
+        return 0
+    try:
+        if os.sched_getscheduler(0) in (os.SCHED_FIFO, os.SCHED_RR):
+            return os.sched_getparam(0).sched_priority  # the server gave us one already
+        priority = min(priority, os.sched_get_priority_max(os.SCHED_FIFO))
+        os.sched_setscheduler(0, os.SCHED_FIFO, os.sched_param(priority))
+        return priority
+    except (OSError, AttributeError):
+        return 0
 
 
 def portaudio_hint() -> str:

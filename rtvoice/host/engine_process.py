@@ -28,6 +28,7 @@ from rtvoice.engine import midi  # noqa: E402
 from rtvoice.engine.controls import ControlMap, default_entries  # noqa: E402
 from rtvoice.engine.renderer import Engine  # noqa: E402
 from rtvoice.engine.settings import SettingsError  # noqa: E402
+from rtvoice.host.audio import request_realtime_priority  # noqa: E402
 from rtvoice.host.board import Board  # noqa: E402
 from rtvoice.host.errors import HostError  # noqa: E402
 from rtvoice.host.meters import CallbackMeter, Publisher, VoiceStage  # noqa: E402
@@ -101,25 +102,6 @@ def _env_int(name: str, default: int) -> int:
         return int(os.environ.get(name, default))
     except ValueError:
         return default
-
-
-def _realtime_priority(priority: int) -> int:
-    """Ask for SCHED_FIFO at ``priority`` for the calling thread (Linux applies it per thread).
-
-    An audio server normally gives its clients' threads real-time priority; a server run
-    without it (``jackd --no-realtime``) or the silent clock does not, and then any busy
-    process on the machine can pre-empt the callback. Returns the priority obtained (0: none).
-    """
-    if priority <= 0 or not hasattr(os, "sched_setscheduler"):
-        return 0
-    try:
-        if os.sched_getscheduler(0) in (os.SCHED_FIFO, os.SCHED_RR):
-            return os.sched_getparam(0).sched_priority  # the server gave us one already
-        priority = min(priority, os.sched_get_priority_max(os.SCHED_FIFO))
-        os.sched_setscheduler(0, os.SCHED_FIFO, os.sched_param(priority))
-        return priority
-    except (OSError, AttributeError):
-        return 0
 
 
 def _send(conn, msg: dict) -> bool:
@@ -226,7 +208,7 @@ class EngineHost:
         t_enter = time.perf_counter()
         if self._rt_thread != threading.get_ident():
             self._rt_thread = threading.get_ident()
-            self.rt_priority = _realtime_priority(self._rt_wanted)
+            self.rt_priority = request_realtime_priority(self._rt_wanted)
         if gen != self.route.gen or frames != self.block:
             if out is not None:
                 out.fill(0.0)
@@ -354,7 +336,7 @@ class EngineHost:
 
     def run(self) -> None:
         if self._rt_wanted > 0:
-            self.main_rt_priority = _realtime_priority(min(MAIN_RT_PRIORITY, self._rt_wanted))
+            self.main_rt_priority = request_realtime_priority(min(MAIN_RT_PRIORITY, self._rt_wanted))
         next_publish = next_scan = next_health = time.monotonic()
         parent = os.getppid()
         while True:
