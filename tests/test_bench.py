@@ -309,10 +309,27 @@ def test_live_columns_count_the_product_and_scale_the_efficiency():
 
     t = Timing(100.0, 150.0, 100.0, 90.0, 200.0, 10)
     bare = BareProduct(512, 128, Timing(80.0, 90.0, 80.0, 70.0, 100.0, 10), 0)
-    point = GridPoint(4, 128, 128, False, 4, t, bare, live_columns=256.0)
+    point = GridPoint(4, 128, 128, False, 4, t, bare, 256.0, Timing(40.0, 50.0, 40.0, 30.0, 60.0, 10))
     assert point.efficiency == pytest.approx(0.8) and point.efficiency_live == pytest.approx(0.4)
-    engine_t, _, active, columns = time_cell(4, 128, 128, repeats=20, ramps=False, warmup=2)
-    assert active == 4 and 0 < columns <= 512
+    engine_t, _, active, columns, live_t = time_cell(4, 128, 128, repeats=20, ramps=False, warmup=2)
+    assert active == 4 and 0 < columns <= 512 and live_t.count == engine_t.count
+
+
+def test_the_live_bare_product_multiplies_as_many_modes_as_asked():
+    # The bare product over the engine's live columns is the product of the leading modes alone
+    # (checked against numpy's product of the same slices in double precision).
+    from rtvoice.bench.limits import factored_operands, factored_product
+
+    width = [512]
+    part, _ = factored_product(512, 128, seed=5, columns=lambda: width[0])
+    full, _ = factored_product(512, 128, seed=5)
+    c_t, a = factored_operands(512, 128, seed=5)
+    np.testing.assert_allclose(part(), full(), rtol=0, atol=0)
+    for m in (100, 1, 600):
+        width[0] = m
+        k = min(m, 512)
+        expected = c_t[:, :k].astype(complex) @ a[:k].astype(complex)
+        np.testing.assert_allclose(part(), expected, rtol=1e-5, atol=1e-5)
 
 
 @pytest.mark.slow

@@ -148,3 +148,45 @@ def test_every_quiet_block_is_the_modal_sum_of_the_state_through_retires_and_rep
         np.testing.assert_allclose(engine._live.samples[0], want, rtol=0, atol=tol, err_msg=f"block {i}")
         checked += 1
     assert retired >= 6 and checked > 300
+
+
+def test_blocks_after_single_replucks_are_the_modal_sum_through_holes_and_ramps():
+    """Re-plucks one note at a time change a slot's tables without a new packing (its columns are
+    rewritten, or left as a hole with new columns after the last); a pickup moving meanwhile forms
+    both weight sets over every packed column, holes included, and with three voices one stale slot
+    already forms every coefficient afresh. Every block without events of its own must still be the
+    modal sum (double precision, every mode) of the state it started from, for the weights before
+    the block (set 0) and the ramp's target (set 1)."""
+    engine = Engine(feature_settings(3, 128), FS, 128)
+    chord = chord_events(3)
+    engine.render(chord)
+    rng = np.random.default_rng(11)
+    checked = with_holes = ramped = 0
+    next_pluck = 1
+    for i in range(1, int(3.0 * FS / 128)):
+        events = []
+        if i == next_pluck:  # one note re-plucked, sooner or later than the 40-ms sweep compacts
+            c = chord[int(rng.integers(3))]
+            events = [(0, 0x80 | (c[1] & 15), c[2], 0), c]
+            next_pluck += int(rng.integers(3, 60))
+        if i % 4 == 0:
+            engine.set_value("pickup.0.position", 0.1 + 0.02 * ((i // 4) % 5))
+        pool = engine.pool
+        n = pool.n_active
+        s0 = (pool.s[:n] * pool.audible[:n]).copy()
+        g0, p = pool.gf[:n].copy(), pool.p[:n].reshape(-1).copy()
+        out = engine.render(events)
+        live = engine._live
+        if events or not live.valid or engine.pool.n_active != n or not np.any(out):
+            continue
+        powers = p[:, None] ** np.arange(128)[None, :]
+        ramp = not np.array_equal(pool.gf[:n], g0)  # the ramp's target weights, taken at the block's end
+        sets = [g0] + ([pool.gf[:n]] if ramp else [])
+        for k, g in enumerate(sets):
+            d = (g * s0).reshape(-1)
+            np.testing.assert_allclose(live.samples[k], np.real(d @ powers), rtol=0,
+                                       atol=2e-6 * float(np.abs(d).sum()), err_msg=f"block {i}, set {k}")
+        checked += 1
+        with_holes += live.holes > 0
+        ramped += len(sets) == 2
+    assert checked > 200 and with_holes > 20 and ramped > 50

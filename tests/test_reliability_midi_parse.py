@@ -11,6 +11,8 @@ follows the specification (it has no running status and resets on real-time byte
 
 from __future__ import annotations
 
+import math
+
 import mido.tokenizer
 from hypothesis import given, settings
 from hypothesis import strategies as st
@@ -171,9 +173,11 @@ def test_a_flood_beyond_what_may_wait_drops_note_ons_and_plays_the_rest_now():
 
 def test_note_on_budget_follows_the_measured_cost():
     """With a note-on costing c seconds over a block of none, a sustained flood gets about
-    budget / c note-ons a block (a token bucket), and a chord after quiet passes whole where it fits."""
+    budget / c note-ons a block (a token bucket), and a chord after quiet passes whole where it fits.
+    The block's own share is set at half the period here, so it does not bind before the bucket
+    (the next test checks that share)."""
     cost_s, base_s = 0.0004, 0.0005
-    guard = NoteOnGuard(PERIOD_S, budget_share=0.25, burst=8)
+    guard = NoteOnGuard(PERIOD_S, budget_share=0.25, burst=8, block_share=0.5)
     passed = []
     for _ in range(2000):
         events = _block(40)
@@ -221,7 +225,9 @@ def test_no_block_is_given_more_note_ons_than_fit_in_its_share():
         guard.learn(base_s + n * cost_s)
         chord, blocks = [], blocks + 1
     assert [e[1:] for e in played] == [e[1:] for e in note_ons(_block(8))]
-    assert blocks <= 6
+    # and no slower than the share allows: as many note-ons a block as fit (at least one)
+    per_block = max(1, math.floor((BLOCK_SHARE * PERIOD_S - base_s) / cost_s))
+    assert blocks <= math.ceil(8 / per_block) + 1
 
 
 def test_a_panic_behind_waiting_note_ons_is_never_later_than_the_longest_wait():
@@ -241,3 +247,33 @@ def test_a_panic_behind_waiting_note_ons_is_never_later_than_the_longest_wait():
         blocks += 1
     assert panic_seen == 16
     assert blocks * PERIOD_S <= MAX_WAIT_S + 2 * PERIOD_S
+
+
+def test_a_strum_of_32_replucks_on_a_slow_machine_is_spread_not_dropped():
+    # The host target's scene (rtvoice bench): 32 ringing notes re-plucked at once, each a note-off
+    # and a note-on, every 2 s, at 128 frames, on a machine where a note-on costs about a
+    # millisecond in a callback (measured on this VM: one re-pluck over a ringing chord of 32,
+    # paced to the period, 0.8-1.2 ms). Every note-on plays, in order, within the longest wait;
+    # with a bucket of 8 the last 15 or so were dropped as a flood.
+    from rtvoice.host.overload import MAX_WAIT_S
+
+    period_s, cost_s, base_s = 128 / 48000, 0.001, 0.00015
+    guard = NoteOnGuard(period_s)
+    for _ in range(3):
+        strum = [(0, 0x80 | (i // 16), 40 + i, 0) for i in range(32)]
+        strum = [e for i in range(32) for e in (strum[i], (0, 0x90 | (i // 16), 40 + i, 90))]
+        played, blocks = [], 0
+        events = list(strum)  # admit works in place
+        while blocks < 750:  # 2 s of blocks
+            guard.admit(events)
+            played += note_ons(events)
+            guard.learn(base_s + len(note_ons(events)) * cost_s)
+            events, blocks = [], blocks + 1
+            if len(played) == 32 and not guard.waiting:
+                break
+        assert guard.dropped == 0
+        assert [e[1:] for e in played] == [e[1:] for e in note_ons(strum)]
+        assert blocks * period_s <= MAX_WAIT_S + period_s
+        for _ in range(750 - blocks):  # the rest of the 2 s
+            guard.admit([])
+            guard.learn(base_s)

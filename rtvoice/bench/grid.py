@@ -26,6 +26,7 @@ class GridPoint:
     engine: Timing
     bare: BareProduct
     live_columns: float = 0.0  # mean columns of the engine's product while timed (its modes still heard)
+    bare_live: Timing | None = None  # the bare product over as many modes as the engine's last block multiplied
 
     @property
     def total_modes(self) -> int:
@@ -52,12 +53,11 @@ class GridPoint:
     @property
     def efficiency_live(self) -> float:
         """Efficiency over the modes the engine actually multiplied (its live columns, see
-        :mod:`rtvoice.engine.live_modes`): the bare product's time scaled to that many modes,
-        over the engine's. Scaling the bare time in proportion to the modes leaves its fixed
-        cost unscaled down, so this reads low, never high."""
-        if not self.live_columns:
+        :mod:`rtvoice.engine.live_modes`): the bare product over that many modes, timed in
+        turns with the engine, over the engine's time."""
+        if self.bare_live is None:
             return 0.0
-        return self.bare.timing.median_us * self.live_columns / self.total_modes / self.engine.median_us
+        return self.bare_live.median_us / self.engine.median_us
 
     def as_dict(self) -> dict:
         return {
@@ -66,16 +66,20 @@ class GridPoint:
             "engine": self.engine.as_dict(), "bare_product": self.bare.timing.as_dict(),
             "load_median": round(self.load, 4), "load_p99": round(self.load_p99, 4),
             "efficiency": round(self.efficiency, 3), "live_columns": round(self.live_columns, 1),
+            "bare_product_live": self.bare_live.as_dict() if self.bare_live else None,
             "efficiency_live": round(self.efficiency_live, 3),
         }
 
 
 def time_cell(voices: int, modes: int, block: int, repeats: int, ramps: bool = True,
-              warmup: int = 20) -> tuple[Timing, BareProduct, int, float]:
-    """The engine's block and the bare product of the same shape, timed in turns (see time_in_turns),
-    the voices sounding and the mean columns of the engine's product over the timed blocks."""
+              warmup: int = 20) -> tuple[Timing, BareProduct, int, float, Timing]:
+    """The engine's block, the bare product of the same shape and the bare product over the
+    engine's live columns, timed in turns (see time_in_turns); the voices sounding and the mean
+    columns of the engine's product over the timed blocks."""
     chord = HeldChord.start(voices, modes, block, ramps)
     product, nbytes = factored_product(voices * modes, block)
+    live_product, _ = factored_product(voices * modes, block, seed=3,
+                                       columns=lambda: max(1, chord.engine.live_columns))
     columns: list[int] = []
 
     def step(i: int) -> None:  # untimed: what the last block multiplied, and the pickup swing
@@ -83,10 +87,11 @@ def time_cell(voices: int, modes: int, block: int, repeats: int, ramps: bool = T
             columns.append(chord.engine.live_columns)
         chord.swing(i)
 
-    engine_t, bare_t = time_in_turns([chord.render, product], repeats, warmup, between=[step, None])
+    engine_t, bare_t, live_t = time_in_turns([chord.render, product, live_product], repeats, warmup,
+                                             between=[step, None, None])
     columns.append(chord.engine.live_columns)
     return (engine_t, BareProduct(voices * modes, block, bare_t, nbytes), chord.active,
-            sum(columns) / len(columns))
+            sum(columns) / len(columns), live_t)
 
 
 def run_grid(voices_list, modes_list, blocks, repeats: int, ramps: bool = True,
@@ -95,8 +100,8 @@ def run_grid(voices_list, modes_list, blocks, repeats: int, ramps: bool = True,
     for block in blocks:
         for modes in modes_list:
             for voices in voices_list:
-                timing, bare, active, columns = time_cell(voices, modes, block, repeats, ramps)
-                points.append(GridPoint(voices, modes, block, ramps, active, timing, bare, columns))
+                timing, bare, active, columns, live = time_cell(voices, modes, block, repeats, ramps)
+                points.append(GridPoint(voices, modes, block, ramps, active, timing, bare, columns, live))
                 if progress:
                     progress(f"engine {voices}x{modes} @{block}: {timing.median_us:.0f} us")
     return points

@@ -46,14 +46,34 @@ def _unit_phasors(rng: np.random.Generator, shape: tuple[int, ...]) -> np.ndarra
     return (0.99 * np.exp(1j * phase)).astype(np.complex64)
 
 
-def factored_product(modes: int, block: int, seed: int = 1) -> tuple[Callable[[], object], int]:
-    """(a call computing Y = C^T A, the bytes it reads): C (modes x N2), A (modes x N1) complex64, Y preallocated."""
+def factored_operands(modes: int, block: int, seed: int = 1) -> tuple[np.ndarray, np.ndarray]:
+    """(C^T, A) of :func:`factored_product`: (N2 x modes) and (modes x N1) complex64."""
     n1, n2 = block_split(block)
     rng = np.random.default_rng(seed)
     a = _unit_phasors(rng, (modes, n1))
     c_t = _unit_phasors(rng, (n2, modes))  # row-major C^T: the layout BLAS reads fastest
+    return c_t, a
+
+
+def factored_product(modes: int, block: int, seed: int = 1,
+                     columns: Callable[[], int] | None = None) -> tuple[Callable[[], object], int]:
+    """(a call computing Y = C^T A, the bytes it reads): C (modes x N2), A (modes x N1) complex64, Y preallocated.
+
+    With ``columns``, each call multiplies only the first ``columns()`` modes (at most
+    ``modes``): the bare product of the size the engine's last block had, read as it goes;
+    the bytes returned are then those of all ``modes``.
+    """
+    c_t, a = factored_operands(modes, block, seed)
+    n1, n2 = a.shape[1], c_t.shape[0]
     y = np.empty((n2, n1), np.complex64)
-    return (lambda: np.matmul(c_t, a, out=y)), COMPLEX64_BYTES * modes * (n1 + n2)
+    if columns is None:
+        return (lambda: np.matmul(c_t, a, out=y)), COMPLEX64_BYTES * modes * (n1 + n2)
+
+    def part() -> np.ndarray:
+        m = min(columns(), modes)
+        return np.matmul(c_t[:, :m], a[:m], out=y)
+
+    return part, COMPLEX64_BYTES * modes * (n1 + n2)
 
 
 def bare_table_product(modes: int, block: int, repeats: int, warmup: int = 5, seed: int = 2) -> BareProduct:

@@ -139,7 +139,7 @@ def _run_once(seconds: float, with_ui: bool, swing: bool) -> dict:
     s = link.summary
     out = {"audio": audio, "seconds": round(s.get("seconds", 0.0), 2), "blocks": s.get("blocks"),
            "load_median": s.get("load_median"), "load_p99": s.get("load_p99"), "xruns": s.get("xruns"),
-           "late": s.get("late"),
+           "late": s.get("late"), "notes_dropped": s.get("notes_dropped"), "voices_max": s.get("voices_max"),
            "render_median": s.get("render_median"), "render_p99": s.get("render_p99"),
            "load_hist": s.get("load_hist", []), "render_hist": s.get("render_hist", [])}
     if with_ui:
@@ -186,9 +186,11 @@ def merge_runs(runs: list[dict]) -> dict:
     """One condition's figures over its segments: counts summed, percentiles from the merged histograms."""
     merged: dict = {"audio": runs[0]["audio"], "segments": len(runs),
                     "segment_xruns": [r["xruns"] for r in runs]}
-    for key in ("seconds", "blocks", "xruns", "late", "ui_frames_drawn"):
+    for key in ("seconds", "blocks", "xruns", "late", "ui_frames_drawn", "notes_dropped"):
         if key in runs[0]:
             merged[key] = round(sum(r.get(key) or 0 for r in runs), 2)
+    if "voices_max" in runs[0]:
+        merged["voices_max"] = max(r.get("voices_max") or 0 for r in runs)
     for kind in ("load", "render"):
         pairs: dict[int, int] = {}
         for r in runs:

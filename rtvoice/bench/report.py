@@ -80,9 +80,9 @@ def render_text(r: dict) -> str:
     out += ["", "`bare us`: the same-shape product alone (complex64, (N2 x M) times (M x N1)); "
             "`efficiency` = bare / engine, i.e. engine throughput over bare-product throughput; "
             "`live`: the mean columns of the engine's product while timed (it multiplies only the modes "
-            "still heard, below -250 dBFS the rest are left out); `eff. live` = (bare us x live / total) / "
-            "engine, the efficiency over the work the engine actually does (reads low: the bare product's "
-            "fixed cost is not scaled down)."]
+            "still heard, below -250 dBFS the rest are left out); `eff. live` = the bare product over as many "
+            "modes as the engine's last block multiplied (timed in turns with it) / engine: the efficiency "
+            "over the work the engine actually does."]
     out += ["", "## Bare table product: memory bandwidth", "",
             "The direct formulation, a (block x modes) complex64 table of powers times the vector of mode "
             "amplitudes, streams the whole table every block.", "",
@@ -147,6 +147,9 @@ def render_text(r: dict) -> str:
                 out.append(f"  - {label}: callback median {_pct(m['load_median'])}, p99 {_pct(m['load_p99'])} of "
                            f"the period{render} over {m['blocks']} blocks in {m['seconds']} s; xruns "
                            f"{m['xruns']}{runs}{late}{extra}")
+                if m.get("voices_max") is not None:
+                    out.append(f"    - most voices sounding {m['voices_max']}; note-ons dropped by the "
+                               f"callback's note-on budget {m.get('notes_dropped', 0)}")
             if "ui_more_xruns_p" in rt[scene]:
                 out.append(f"  - more xruns with the UI than headless by chance alone: one-sided p = "
                            f"{rt[scene]['ui_more_xruns_p']:.2f} (exact test of two Poisson counts)")

@@ -11,11 +11,14 @@ sixth a second later (measured with ``rtvoice bench``'s chord).
 
 The packing holds copies of the tables the product reads (A rows, B^T, p^N) for the
 packed columns, and the block coefficients C^T = B^T (g s) themselves. It is packed
-afresh when a note starts or tables are rebuilt, and at the engine's tiny-mode sweep
-when the prefixes have shrunk; between those the prefixes only hold modes that were
-live, so nothing is lost. A voice that retires leaves a hole instead (its columns
-read the zeroed amplitudes of the slot the pool emptied) and the voice the pool
-moves into its slot keeps its columns: a few slice operations, not a new packing.
+afresh when many slots change at once (a chord, new settings), and at the engine's
+tiny-mode sweep when the prefixes have shrunk or holes were left; between those the
+prefixes only hold modes that were live, so nothing is lost. A few changes are
+slice operations instead of a new packing: a voice that retires leaves a hole (its
+columns masked out of the coefficients) and the voice the pool moves into its slot
+keeps its columns; a slot whose tables change (a note starting, released, faded,
+bent) gets its tables copied over its columns when its live prefix still fits
+there, and otherwise leaves a hole and takes new columns after the last.
 A mode left out contributes |g s| < 1e-15 |g| to a sample (|g| is at most a few
 hundred): below -250 dBFS, far under the single-precision product's own rounding.
 """
@@ -29,6 +32,9 @@ import numpy as np
 from rtvoice.engine.voices import VoicePool
 
 LIVE_MODE = 1e-15  # a mode amplitude below this is left out of the block product
+#: More slots than this changing tables in one block are packed afresh (one vectorised pass)
+#: rather than one by one (a few numpy calls each).
+RENEW_ONE_BY_ONE = 4
 
 
 class LiveProduct:
@@ -45,10 +51,13 @@ class LiveProduct:
         slots, modes, n1, n2 = pool.slots, pool.modes, pool.n1, pool.n2
         cap = slots * modes
         self.n1, self.n2 = n1, n2
+        self.cap = cap
         self._a = np.zeros((2 * cap, n1), np.float32)
-        self._bt = np.zeros(n2 * cap, np.complex64)
+        # B^T and C^T keep a leading dimension of cap, so columns can be added without moving the others.
+        self._bt = np.zeros((n2, cap), np.complex64)
         self._pb = np.zeros(cap, np.complex64)
-        self._ct = np.zeros(2 * n2 * cap, np.complex64)
+        self._ct = np.zeros((2 * n2, cap), np.complex64)
+        self._keep = np.zeros(cap, np.float32)  # 1 for a slot's columns, 0 for a hole's
         self._d = np.zeros(cap, np.complex64)
         self._g = np.zeros(cap, complex)
         self._s = np.zeros(cap, complex)
@@ -67,7 +76,7 @@ class LiveProduct:
         self.valid = False  # False: the slots or their tables changed; pack before the next product
         self.n = 0
         self.columns = 0  # L
-        self.holes = 0  # columns left by retired voices since the packing (packed away at the next sweep)
+        self.holes = 0  # columns left as holes since the packing (packed away at the next sweep)
         self._views(0)
 
     def live_prefixes(self, n: int) -> np.ndarray:
@@ -105,8 +114,9 @@ class LiveProduct:
         # packed column c of slot v is its mode c - start[v]: flat index v * modes + c - start[v]
         np.subtract(self._iota[:count], np.repeat(start[:n] - self._slot_start[:n], k), out=cols)
         np.take(self._a_flat, cols, axis=0, out=self._a[: 2 * count].reshape(count, 2 * self.n1), mode="clip")
-        np.take(self._bt_flat, cols, axis=1, out=self._bt[: self.n2 * count].reshape(self.n2, count), mode="clip")
+        np.take(self._bt_flat, cols, axis=1, out=self._bt[:, :count], mode="clip")
         np.take(self._pb_flat, cols, out=self._pb[:count], mode="clip")
+        self._keep[:count] = 1.0
         self.live[:n] = k
         self.n, self.columns, self.valid, self.holes = n, count, True, 0
         self._views(count)
@@ -118,9 +128,8 @@ class LiveProduct:
             return
         last = self.n - 1
         lo, k = self.start[v], self.live[v]
-        self.holes += k
-        self.ct[0][:, lo: lo + k] = 0.0  # a hole: no sound now, and its columns now read the empty slot
-        self.cols[lo: lo + k] += (last - v) * self.pool.modes
+        self._hole(lo, k)
+        self.cols[lo: lo + k] += (last - v) * self.pool.modes  # (its columns now read the empty slot)
         if moved >= 0:
             lo, k = self.start[moved], self.live[moved]
             self.cols[lo: lo + k] -= (moved - v) * self.pool.modes
@@ -128,13 +137,65 @@ class LiveProduct:
         self.live[last] = 0
         self.n = last
 
+    def _hole(self, lo: int, k: int) -> None:
+        """Columns lo .. lo + k - 1 out of the product: no sound now, none from later coefficients."""
+        self.holes += k
+        self.ct[0][:, lo: lo + k] = 0.0
+        self._keep[lo: lo + k] = 0.0
+
+    def renew(self, slots: list[int], n: int) -> None:
+        """Slots ``slots`` of active slots 0..n-1 have new tables (and amplitudes, for a new note):
+        copy them over their columns, or into new columns after the last; pack afresh instead
+        (marking the packing invalid) when many change, or there is no room. Their coefficients
+        must then be worked out afresh (the renderer marks them stale)."""
+        if not self.valid:
+            return
+        if len(slots) > RENEW_ONE_BY_ONE:
+            self.valid = False
+            return
+        pool = self.pool
+        for v in sorted(slots):
+            if v >= n:
+                continue
+            heard = np.abs(pool.s[v]) >= LIVE_MODE
+            heard &= pool.audible[v] > 0
+            k = pool.modes - int(np.argmax(heard[::-1])) if heard.any() else 0
+            if v < self.n:
+                lo, old = int(self.start[v]), int(self.live[v])
+                if k <= old:  # fits where it is (its modes from k on are quiet but true: kept)
+                    self._copy(v, lo, old)
+                    continue
+                self._hole(lo, old)
+            elif v == self.n:
+                self.n += 1
+            else:  # a new slot after a gap: not a layout this packing can follow
+                self.valid = False
+                return
+            lo = self.columns
+            if lo + k > self.cap:
+                self.valid = False
+                return
+            self._copy(v, lo, k)
+            self.start[v], self.live[v] = lo, k
+            self.columns = lo + k
+            self._views(self.columns)
+
+    def _copy(self, v: int, lo: int, k: int) -> None:
+        """Slot v's tables for its modes 0..k-1 into columns lo .. lo + k - 1."""
+        f, hi = int(self._slot_start[v]), lo + k
+        self._a[2 * lo: 2 * hi] = self._a_flat[f: f + k].reshape(2 * k, self.n1)
+        self._bt[:, lo:hi] = self._bt_flat[:, f: f + k]
+        self._pb[lo:hi] = self._pb_flat[f: f + k]
+        self._cols[lo:hi] = self._iota[f: f + k]
+        self._keep[lo:hi] = 1.0
+
     def _views(self, count: int) -> None:
         n2 = self.n2
-        ct = self._ct[: 2 * n2 * count].reshape(2 * n2, count)
+        ct = self._ct[:, :count]
         self.ct = (ct[:n2], ct[n2:])
         self.lhs = (self.ct[0].view(np.float32), ct.view(np.float32))  # [Re C, Im C] per mode, 1 or 2 sets
         self.a = self._a[: 2 * count]
-        self.bt = self._bt[: n2 * count].reshape(n2, count)
+        self.bt = self._bt[:, :count]
         self.pb = self._pb[:count]
         self.cols = self._cols[:count]
         self.d = self._d[:count]
@@ -146,6 +207,8 @@ class LiveProduct:
         np.take(g.reshape(-1), self.cols, out=self.g_buf, mode="clip")
         np.take(self.pool.s.reshape(-1), self.cols, out=self.s_buf, mode="clip")
         np.multiply(self.g_buf, self.s_buf, out=self.d, casting="same_kind")
+        if self.holes:
+            self.d *= self._keep[: self.columns]
         start, live = self.start, self.live
         for v in silent:
             if v < self.n:

@@ -513,7 +513,7 @@ class Engine:
                 if new:
                     self._tables.save(pool, np.array(list(new.values())), list(new))
             self._weigh(idx)
-            self._live.valid = False  # the packed tables are copies
+            self._live.renew(self._dirty_list, pool.n_active)  # the packed tables are copies
             for v in self._dirty_list:
                 self._mark_stale(v)
             self._dirty[self._dirty_list] = False

@@ -161,6 +161,7 @@ class EngineHost:
         self.late = 0  # callbacks that took longer than the block period
         self.midi_events = 0
         self.blocks = 0
+        self.voices_max = 0  # most voices sounding at the end of a block, over the run
         self._peak_hold = 0.0
         self._gr_hold = 0.0
         self._ui_every = max(1, round(PUBLISH_EVERY_S / self.period_s))
@@ -280,6 +281,9 @@ class EngineHost:
         if gr > self._gr_hold:
             self._gr_hold = gr
         self.blocks += 1
+        voices = self.engine.stats.voices
+        if voices > self.voices_max:
+            self.voices_max = voices
         if self.blocks % self._ui_every == 0:
             self.voice_stage.stage(self.engine, self._gain)
 
@@ -473,7 +477,7 @@ class EngineHost:
             "render_p99": self.render_load.run_percentile(0.99),
             "load_hist": self.load.histogram_pairs(), "render_hist": self.render_load.histogram_pairs(),
             "midi_events": self.midi_events, "notes_dropped": self.guard.dropped,
-            "clock_resyncs": self.clock.resyncs, "rt_priority": self.rt_priority,
+            "voices_max": self.voices_max, "clock_resyncs": self.clock.resyncs, "rt_priority": self.rt_priority,
             "main_rt_priority": self.main_rt_priority,
         }
         if self.recorder is not None:
