@@ -3,17 +3,20 @@
 Run as ``python -m rtvoice.bench.idle_client SECONDS [BLOCK]`` against a JACK server
 (``JACK_DEFAULT_SERVER`` names it): it opens the ``system`` output the way the host
 does (float32, fixed block, low latency, SCHED_FIFO for the callback thread where
-allowed) and prints one JSON line: ``{"seconds", "blocks", "xruns"}``. The xruns it
-counts are the server's and the machine's, since its own callback does almost nothing;
-the benchmark takes it in turns with the host so each is read against this floor.
+allowed, the same CPU wake-up request as :mod:`rtvoice.host.cpu_wakeup`) and prints
+one JSON line: ``{"seconds", "blocks", "xruns"}``. The xruns it counts are the
+server's and the machine's, since its own callback does almost nothing; the benchmark
+takes it in turns with the host so each is read against this floor.
 """
 
 from __future__ import annotations
 
 import json
+import os
 import sys
 import time
 
+from rtvoice.host import cpu_wakeup
 from rtvoice.host.audio import PortAudioOutput, find_device, load_sounddevice, request_realtime_priority
 
 REALTIME_PRIORITY = 70  # the host's callback asks for the same
@@ -40,12 +43,14 @@ def run(seconds: float, block: int = 128, rate: int = 48000) -> dict:
         raise RuntimeError(reason)
     silence = _Silence()
     output = PortAudioOutput(sd, find_device(sd, "system"), rate, block, silence)
+    fd, _ = cpu_wakeup.request(cpu_wakeup.wanted_us(os.environ.get(cpu_wakeup.ENV)))
     output.start()
     start = time.monotonic()
     try:
         time.sleep(seconds)
     finally:
         output.stop()
+        cpu_wakeup.release(fd)
     return {"seconds": round(time.monotonic() - start, 2), "blocks": silence.blocks, "xruns": silence.xruns}
 
 

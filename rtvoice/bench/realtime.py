@@ -134,10 +134,11 @@ def _run_once(seconds: float, with_ui: bool, swing: bool) -> dict:
                 time.sleep(SWING_S)
             frames = 0
         audio = link.ready_info.get("audio_port", "")
+        wakeup = link.ready_info.get("cpu_wakeup", "")
     finally:
         link.close()
     s = link.summary
-    out = {"audio": audio, "seconds": round(s.get("seconds", 0.0), 2), "blocks": s.get("blocks"),
+    out = {"audio": audio, "cpu_wakeup": wakeup, "seconds": round(s.get("seconds", 0.0), 2), "blocks": s.get("blocks"),
            "load_median": s.get("load_median"), "load_p99": s.get("load_p99"), "xruns": s.get("xruns"),
            "late": s.get("late"), "notes_dropped": s.get("notes_dropped"), "voices_max": s.get("voices_max"),
            "render_median": s.get("render_median"), "render_p99": s.get("render_p99"),
@@ -184,7 +185,7 @@ def hist_percentile(pairs: list, q: float) -> float:
 
 def merge_runs(runs: list[dict]) -> dict:
     """One condition's figures over its segments: counts summed, percentiles from the merged histograms."""
-    merged: dict = {"audio": runs[0]["audio"], "segments": len(runs),
+    merged: dict = {"audio": runs[0]["audio"], "cpu_wakeup": runs[0].get("cpu_wakeup", ""), "segments": len(runs),
                     "segment_xruns": [r["xruns"] for r in runs]}
     for key in ("seconds", "blocks", "xruns", "late", "ui_frames_drawn", "notes_dropped"):
         if key in runs[0]:

@@ -131,7 +131,8 @@ def render_text(r: dict) -> str:
     if rt.get("available"):
         out.append(f"- {rt['voices']} voices x {rt['modes']} modes, {rt['period_frames']}-frame periods; the server "
                    f"ran with {rt.get('server_scheduling', 'ordinary')} scheduling; each condition in "
-                   f"{rt['ringing']['without_ui'].get('segments', 1)} runs taken in turns with the other's, merged")
+                   f"{rt['ringing']['without_ui'].get('segments', 1)} runs taken in turns with the other's, merged; "
+                   f"the engine process: {rt['ringing']['without_ui'].get('cpu_wakeup') or 'no CPU wake-up request'}")
         scenes = (("ringing", "a chord of 32 notes strummed every 2 s (the target's scene)"),
                   ("swinging", "the same with a pickup swung 20 times a second"))
         for scene, what in scenes:

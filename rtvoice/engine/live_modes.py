@@ -143,11 +143,13 @@ class LiveProduct:
         self.ct[0][:, lo: lo + k] = 0.0
         self._keep[lo: lo + k] = 0.0
 
-    def renew(self, slots: list[int], n: int) -> None:
+    def renew(self, slots: list[int], n: int, same_modes: Iterable[int] = ()) -> None:
         """Slots ``slots`` of active slots 0..n-1 have new tables (and amplitudes, for a new note):
         copy them over their columns, or into new columns after the last; pack afresh instead
-        (marking the packing invalid) when many change, or there is no room. Their coefficients
-        must then be worked out afresh (the renderer marks them stale)."""
+        (marking the packing invalid) when many change, or there is no room. Slots in
+        ``same_modes`` kept their amplitudes and heard modes (a release, a fade): their prefix is
+        not looked for again. Their coefficients must then be worked out afresh (the renderer
+        marks them stale)."""
         if not self.valid:
             return
         if len(slots) > RENEW_ONE_BY_ONE:
@@ -156,6 +158,9 @@ class LiveProduct:
         pool = self.pool
         for v in sorted(slots):
             if v >= n:
+                continue
+            if v < self.n and v in same_modes:
+                self._copy(v, int(self.start[v]), int(self.live[v]))
                 continue
             heard = np.abs(pool.s[v]) >= LIVE_MODE
             heard &= pool.audible[v] > 0

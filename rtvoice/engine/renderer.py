@@ -442,7 +442,8 @@ class Engine:
                             pool.decay[v] = DECAY_HOLD
                             pool.epoch[v] = self._tables.epoch
                     self._mark_tables(v)
-                self._flush_tables()
+                # A release or fade changes decay rates only: its slot's heard modes stay as they are.
+                self._flush_tables(same_modes={g[0][0] for g in now if g[0][2] != START})
                 # The output filter's free response to each change, from where its voice stands (with
                 # events in time order, the change's own sample).
                 at = np.maximum([g[0][1] for g in now], self._upto[idx])
@@ -460,9 +461,12 @@ class Engine:
     def _render_segments(self, slots: list[int], stops: list[int], ramping: bool) -> None:
         """Render each of ``slots`` on the exact path from where it stands up to its sample in ``stops``."""
         pool = self.pool
+        upto = self._upto
+        if all(stop <= upto[v] for v, stop in zip(slots, stops, strict=True)):
+            return  # nothing to render (changes on the block's first sample, say)
         idx = np.asarray(slots)
         stop = np.asarray(stops)
-        start = self._upto[idx]
+        start = upto[idx]
         count = stop - start
         keep = count > 0
         if not keep.all():
@@ -492,8 +496,12 @@ class Engine:
             self._dirty[v] = True
             self._dirty_list.append(v)
 
-    def _flush_tables(self) -> None:
-        """Rebuild the marked slots' tables: copied from :class:`NoteTables` where kept, built (and kept) otherwise."""
+    def _flush_tables(self, same_modes: set[int] | frozenset[int] = frozenset()) -> None:
+        """Rebuild the marked slots' tables: copied from :class:`NoteTables` where kept, built (and kept) otherwise.
+
+        ``same_modes``: marked slots whose amplitudes and heard modes did not change (a release, a
+        fade), so their live prefix in the block product stays.
+        """
         if self._dirty_list:
             pool = self.pool
             idx = np.array(self._dirty_list)
@@ -513,7 +521,7 @@ class Engine:
                 if new:
                     self._tables.save(pool, np.array(list(new.values())), list(new))
             self._weigh(idx)
-            self._live.renew(self._dirty_list, pool.n_active)  # the packed tables are copies
+            self._live.renew(self._dirty_list, pool.n_active, same_modes)  # the packed tables are copies
             for v in self._dirty_list:
                 self._mark_stale(v)
             self._dirty[self._dirty_list] = False

@@ -28,6 +28,7 @@ from rtvoice.engine import midi  # noqa: E402
 from rtvoice.engine.controls import ControlMap, default_entries  # noqa: E402
 from rtvoice.engine.renderer import Engine  # noqa: E402
 from rtvoice.engine.settings import SettingsError  # noqa: E402
+from rtvoice.host import cpu_wakeup  # noqa: E402
 from rtvoice.host.audio import request_realtime_priority  # noqa: E402
 from rtvoice.host.board import Board  # noqa: E402
 from rtvoice.host.errors import HostError  # noqa: E402
@@ -172,9 +173,17 @@ class EngineHost:
         self._rt_wanted = _env_int(RT_PRIORITY_ENV, DEFAULT_RT_PRIORITY)
         self.rt_priority = 0
         self.main_rt_priority = 0
+        self._wakeup_fd: int | None = None
+        self.cpu_wakeup = "not asked"  # what the CPU wake-up request got (see rtvoice.host.cpu_wakeup)
 
     # -- start-up -----------------------------------------------------------------------
     def start(self) -> None:
+        try:
+            wanted = cpu_wakeup.wanted_us(os.environ.get(cpu_wakeup.ENV))
+        except ValueError as err:
+            wanted = cpu_wakeup.DEFAULT_US
+            self.notes.append(f"{err}; asking for {wanted} us")
+        self._wakeup_fd, self.cpu_wakeup = cpu_wakeup.request(wanted)
         self.notes += self.midi.open()
         self._configure_mpe(self.config.get("mpe"))
         self.route.open(first=True)
@@ -197,6 +206,7 @@ class EngineHost:
             "type": "ready", "audio_port": self.route.label, "audio_ports": self.route.ports,
             "midi_ports": self.midi.names(), "notes": list(self.notes), "rate": self.rate, "block": self.block,
             "latency_s": getattr(self.route.output, "latency_s", 0.0), "pid": os.getpid(),
+            "cpu_wakeup": self.cpu_wakeup,
         })
         self.notes.clear()
         self._send_controls()
@@ -478,8 +488,10 @@ class EngineHost:
             "load_hist": self.load.histogram_pairs(), "render_hist": self.render_load.histogram_pairs(),
             "midi_events": self.midi_events, "notes_dropped": self.guard.dropped,
             "voices_max": self.voices_max, "clock_resyncs": self.clock.resyncs, "rt_priority": self.rt_priority,
-            "main_rt_priority": self.main_rt_priority,
+            "main_rt_priority": self.main_rt_priority, "cpu_wakeup": self.cpu_wakeup,
         }
+        cpu_wakeup.release(self._wakeup_fd)
+        self._wakeup_fd = None
         if self.recorder is not None:
             summary.update(record=str(self.recorder.path), record_seconds=self.recorder.seconds,
                            record_lost=self.recorder.lost)

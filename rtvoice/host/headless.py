@@ -29,6 +29,8 @@ def describe_start(link: EngineLink) -> list[str]:
              f" ({1000 * info.get('block', 0) / max(info.get('rate', 1), 1):.1f} ms)"]
     ports = info.get("midi_ports") or []
     lines.append(f"MIDI in: {', '.join(ports) if ports else 'none'}")
+    if info.get("cpu_wakeup"):
+        lines.append(f"CPU wake-up: {info['cpu_wakeup']}")
     lines += list(info.get("notes", []))
     return lines
 
