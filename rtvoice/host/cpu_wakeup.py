@@ -2,9 +2,10 @@
 
 A CPU that halts between audio callbacks comes back slowly and with cold caches. On
 the two-CPU virtual machine the project is built on, a block of 32 ringing voices paced
-to the 128-frame period took a median 263 us (p99 815) with the CPU halting between
-blocks, 108 us (p99 478) with idle CPUs polling, and a block carrying a re-pluck 747 us
-(p99 1570) against 518 (p99 797); back to back, without the gaps, 93 and 446 us.
+to the 128-frame period took a median 264 us (p99 973) with the CPU halting between
+blocks and 150 us (p99 613) with idle CPUs polling, a block carrying a re-pluck 758 us
+(p99 1556) against 565 (p99 1081): one process, the two taken in turns; back to back,
+without the gaps, such blocks take about 80 and 400 us.
 
 The kernel's CPU latency request does the polling (Linux, Documentation/power/
 pm_qos_interface.rst): a process writes the wake-up latency it tolerates, in
