@@ -60,3 +60,14 @@ def test_the_engine_process_holds_the_request_while_it_plays_and_says_so(monkeyp
         link.close()
     assert cpu_wakeup.current_us() == before
     assert link.summary["cpu_wakeup"].startswith("CPU wake-up held")
+
+
+def test_a_value_it_cannot_read_is_said_and_the_default_asked(monkeypatch):
+    monkeypatch.setenv(cpu_wakeup.ENV, "fast")
+    fd, text = cpu_wakeup.request_from_environment()
+    try:
+        assert "'fast'" in text and "asked for the default" in text
+        if CAN_WRITE:
+            assert fd is not None and cpu_wakeup.current_us() == cpu_wakeup.DEFAULT_US
+    finally:
+        cpu_wakeup.release(fd)

@@ -12,7 +12,6 @@ takes it in turns with the host so each is read against this floor.
 from __future__ import annotations
 
 import json
-import os
 import sys
 import time
 
@@ -43,7 +42,7 @@ def run(seconds: float, block: int = 128, rate: int = 48000) -> dict:
         raise RuntimeError(reason)
     silence = _Silence()
     output = PortAudioOutput(sd, find_device(sd, "system"), rate, block, silence)
-    fd, _ = cpu_wakeup.request(cpu_wakeup.wanted_us(os.environ.get(cpu_wakeup.ENV)))
+    fd, _ = cpu_wakeup.request_from_environment()
     output.start()
     start = time.monotonic()
     try:

@@ -217,12 +217,12 @@ def callback_distribution(seconds: float) -> dict:
                 runs: dict[bool, list] = {False: [], True: []}
                 idle: list[dict] = []
                 part = seconds / SEGMENTS
+                # The idle client (the floor) is taken once, in the target's scene.
+                conditions = ("headless", "ui") if swing else ("headless", "ui", "idle")
                 for i in range(SEGMENTS):  # in turns, ABBA: a slow spell of the machine falls on all alike
-                    order = ("headless", "ui", "idle") if i % 2 == 0 else ("idle", "ui", "headless")
-                    for what in order:
+                    for what in conditions if i % 2 == 0 else conditions[::-1]:
                         if what == "idle":
-                            if not swing:  # the floor: once, in the target's scene
-                                idle.append(_run_idle(part))
+                            idle.append(_run_idle(part))
                         else:
                             runs[what == "ui"].append(_run_once(part, with_ui=what == "ui", swing=swing))
                 head, ui = merge_runs(runs[False]), merge_runs(runs[True])

@@ -462,17 +462,15 @@ class Engine:
         """Render each of ``slots`` on the exact path from where it stands up to its sample in ``stops``."""
         pool = self.pool
         upto = self._upto
-        if all(stop <= upto[v] for v, stop in zip(slots, stops, strict=True)):
-            return  # nothing to render (changes on the block's first sample, say)
-        idx = np.asarray(slots)
-        stop = np.asarray(stops)
+        # The few slots with samples left to render, picked in Python (changes on the block's first
+        # sample have none, and then no array is made at all).
+        todo = [(v, stop) for v, stop in zip(slots, stops, strict=True) if stop > upto[v]]
+        if not todo:
+            return
+        idx = np.array([v for v, _ in todo])
+        stop = np.array([t for _, t in todo])
         start = upto[idx]
         count = stop - start
-        keep = count > 0
-        if not keep.all():
-            idx, start, stop, count = idx[keep], start[keep], stop[keep], count[keep]
-        if idx.size == 0:
-            return
         s = pool.s[idx]
         y = pool.segments(idx, pool.gf[idx] * s, int(count.max()))
         if ramping:

@@ -61,6 +61,16 @@ def request(latency_us: int | None, device: str = DEVICE) -> tuple[int | None, s
     return fd, f"CPU wake-up held within {latency_us} us while playing"
 
 
+def request_from_environment() -> tuple[int | None, str]:
+    """:func:`request` with the value :data:`ENV` asks for; a value it cannot read is said in the
+    text and the default asked instead."""
+    try:
+        return request(wanted_us(os.environ.get(ENV)))
+    except ValueError as err:
+        fd, text = request(DEFAULT_US)
+        return fd, f"{text} ({err}; asked for the default)"
+
+
 def release(fd: int | None) -> None:
     """Withdraw a request made by :func:`request`."""
     if fd is not None:

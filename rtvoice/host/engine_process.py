@@ -178,12 +178,7 @@ class EngineHost:
 
     # -- start-up -----------------------------------------------------------------------
     def start(self) -> None:
-        try:
-            wanted = cpu_wakeup.wanted_us(os.environ.get(cpu_wakeup.ENV))
-        except ValueError as err:
-            wanted = cpu_wakeup.DEFAULT_US
-            self.notes.append(f"{err}; asking for {wanted} us")
-        self._wakeup_fd, self.cpu_wakeup = cpu_wakeup.request(wanted)
+        self._wakeup_fd, self.cpu_wakeup = cpu_wakeup.request_from_environment()
         self.notes += self.midi.open()
         self._configure_mpe(self.config.get("mpe"))
         self.route.open(first=True)
