@@ -11,6 +11,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 from test_ui_helpers import fresh, home, link  # noqa: F401 - home and link are shared fixtures
+from textual.widgets import Input
 
 from rtvoice.engine import presets
 from rtvoice.engine.renderer import Engine
@@ -55,6 +56,21 @@ def make_app(link) -> RtvoiceApp:
     return RtvoiceApp(FixedPicture(fresh(link), fixed_snapshot()), safety_note=False)
 
 
+def typed(*keys: str):
+    """A run_before for snap_compare: press ``keys``, then hold every text cursor still (shown).
+
+    A text input's cursor blinks on a 0.5-s timer, so on a loaded machine the picture was
+    taken with it on or off by chance (a CI run failed on that one cell).
+    """
+    async def run(pilot) -> None:
+        await pilot.press(*keys)
+        for field in pilot.app.screen.query(Input):
+            field.cursor_blink = False
+        await pilot.pause()
+
+    return run
+
+
 @pytest.mark.parametrize("size", [(80, 24), (120, 40)])
 def test_main_screen(snap_compare, link, size):
     assert snap_compare(make_app(link), terminal_size=size)
@@ -82,9 +98,9 @@ def test_preset_list_filtered(snap_compare, link, home, monkeypatch):
     presets.write_atomic(factory / "wide-aperture.toml", b'description = "One broad pickup."\n')
     presets.write_atomic(factory / "near-bridge.toml", b'description = "Pluck and pickup by the bridge."\n')
     presets.save_preset(Settings.defaults().with_values({"pickup.0.width": 0.08}), "my-wide")
-    assert snap_compare(make_app(link), terminal_size=(80, 24), press=["ctrl+o", *"wide"])
+    assert snap_compare(make_app(link), terminal_size=(80, 24), run_before=typed("ctrl+o", *"wide"))
 
 
 def test_refused_value(snap_compare, link):
     assert snap_compare(make_app(link), terminal_size=(80, 24),
-                        press=["tab", "enter", "home", "ctrl+k", *"2000", "enter"])
+                        run_before=typed("tab", "enter", "home", "ctrl+k", *"2000", "enter"))
