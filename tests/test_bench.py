@@ -342,3 +342,10 @@ def test_idle_client_counts_blocks_of_the_server_period(jack_server):
     expected = got["seconds"] * jack_server.sample_rate_hz / jack_server.buffer_frames
     assert got["blocks"] == pytest.approx(expected, rel=0.1)
     assert 0 <= got["xruns"] < got["blocks"]
+
+
+def test_idle_client_refuses_bad_arguments_in_one_line():
+    proc = subprocess.run([sys.executable, "-m", "rtvoice.bench.idle_client", "soon"], capture_output=True,
+                          text=True, timeout=60, check=False)
+    assert proc.returncode == 2 and "Traceback" not in proc.stderr
+    assert len(proc.stderr.strip().splitlines()) == 1 and "SECONDS" in proc.stderr

@@ -17,6 +17,7 @@ import time
 
 from rtvoice.host import cpu_wakeup
 from rtvoice.host.audio import PortAudioOutput, find_device, load_sounddevice, request_realtime_priority
+from rtvoice.host.errors import HostError
 
 REALTIME_PRIORITY = 70  # the host's callback asks for the same
 
@@ -54,9 +55,20 @@ def run(seconds: float, block: int = 128, rate: int = 48000) -> dict:
 
 
 def main(argv: list[str]) -> int:
-    seconds = float(argv[0]) if argv else 10.0
-    block = int(argv[1]) if len(argv) > 1 else 128
-    print(json.dumps(run(seconds, block)))
+    try:
+        seconds = float(argv[0]) if argv else 10.0
+        block = int(argv[1]) if len(argv) > 1 else 128
+        if seconds <= 0 or block <= 0:
+            raise ValueError
+    except ValueError:
+        print(f"usage: python -m rtvoice.bench.idle_client SECONDS [BLOCK] (positive numbers), not {argv}",
+              file=sys.stderr)
+        return 2
+    try:
+        print(json.dumps(run(seconds, block)))
+    except (RuntimeError, OSError, HostError) as err:
+        print(f"idle client: {err}", file=sys.stderr)
+        return 1
     return 0
 
 
