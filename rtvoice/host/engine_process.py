@@ -28,7 +28,7 @@ from rtvoice.engine import midi  # noqa: E402
 from rtvoice.engine.controls import ControlMap, default_entries  # noqa: E402
 from rtvoice.engine.renderer import Engine  # noqa: E402
 from rtvoice.engine.settings import SettingsError  # noqa: E402
-from rtvoice.host import cpu_wakeup  # noqa: E402
+from rtvoice.host import cpu_wakeup, heap  # noqa: E402
 from rtvoice.host.audio import request_realtime_priority  # noqa: E402
 from rtvoice.host.board import Board  # noqa: E402
 from rtvoice.host.errors import HostError  # noqa: E402
@@ -175,12 +175,14 @@ class EngineHost:
         self.main_rt_priority = 0
         self._wakeup_fd: int | None = None
         self.cpu_wakeup = "not asked"  # what the CPU wake-up request got (see rtvoice.host.cpu_wakeup)
+        self.heap_frozen = 0  # objects moved out of the collector's reach at start-up (see rtvoice.host.heap)
 
     # -- start-up -----------------------------------------------------------------------
     def start(self) -> None:
         self._wakeup_fd, self.cpu_wakeup = cpu_wakeup.request_from_environment()
         self.notes += self.midi.open()
         self._configure_mpe(self.config.get("mpe"))
+        self.heap_frozen = heap.freeze_startup_heap()  # before the stream runs: the collection holds the lock
         self.route.open(first=True)
         self.notes += self.route.notes
         if self.recorder is not None:
@@ -201,7 +203,8 @@ class EngineHost:
             "type": "ready", "audio_port": self.route.label, "audio_ports": self.route.ports,
             "midi_ports": self.midi.names(), "notes": list(self.notes), "rate": self.rate, "block": self.block,
             "latency_s": getattr(self.route.output, "latency_s", 0.0), "pid": os.getpid(),
-            "cpu_wakeup": self.cpu_wakeup,
+            "cpu_wakeup": self.cpu_wakeup, "heap_frozen": self.heap_frozen,
+            "heap_walked": heap.full_collection_objects(),
         })
         self.notes.clear()
         self._send_controls()
@@ -484,6 +487,7 @@ class EngineHost:
             "midi_events": self.midi_events, "notes_dropped": self.guard.dropped,
             "voices_max": self.voices_max, "clock_resyncs": self.clock.resyncs, "rt_priority": self.rt_priority,
             "main_rt_priority": self.main_rt_priority, "cpu_wakeup": self.cpu_wakeup,
+            "heap_frozen": self.heap_frozen, "heap_walked": heap.full_collection_objects(),
         }
         cpu_wakeup.release(self._wakeup_fd)
         self._wakeup_fd = None
