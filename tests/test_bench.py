@@ -10,8 +10,10 @@ from __future__ import annotations
 import json
 import math
 import os
+import shutil
 import subprocess
 import sys
+import time
 
 import numpy as np
 import pytest
@@ -349,3 +351,59 @@ def test_idle_client_refuses_bad_arguments_in_one_line():
                           text=True, timeout=60, check=False)
     assert proc.returncode == 2 and "Traceback" not in proc.stderr
     assert len(proc.stderr.strip().splitlines()) == 1 and "SECONDS" in proc.stderr
+
+
+def test_server_log_lines_are_read_as_the_servers_account_of_its_xruns():
+    # jack2's own error lines (jackd 1.9, as it wrote them on this machine's dummy server).
+    from rtvoice.bench.realtime import merge_server_logs, xrun_lines
+
+    text = "\n".join([
+        "JackTimedDriver::Process XRun = 14 usec",
+        "JackEngine::XRun: client = rtvbench-engine was not finished, state = Running",
+        "JackEngine::XRun: client = rtvbench-engine was not finished, state = Triggered",
+        "JackEngine::XRun: client = my client:2 was not finished, state = Running",
+        "Jack: JackClient::Activate",
+        "JackTimedDriver::Process XRun = 7 usec",
+    ])
+    got = xrun_lines(text)
+    assert got == {"timer_late": 2, "not_finished": {"rtvbench-engine": 2, "my client:2": 1}}
+    assert xrun_lines("") == {"timer_late": 0, "not_finished": {}}
+    both = merge_server_logs([got, {"timer_late": 1, "not_finished": {"rtvbench-idle": 3}}])
+    assert both == {"timer_late": 3, "not_finished": {"rtvbench-engine": 2, "my client:2": 1, "rtvbench-idle": 3}}
+
+
+_SLOW_CLIENT = """
+import sys, time
+from rtvoice.host.audio import PortAudioOutput, find_device, load_sounddevice
+sd, reason = load_sounddevice("rtvtest-slow")
+blocks = [0]
+def callback(out, frames, underflow):
+    out.fill(0.0)
+    blocks[0] += 1
+    if blocks[0] % 25 == 0:
+        time.sleep(0.03)  # several periods: the server sees this client not finished
+output = PortAudioOutput(sd, find_device(sd, "system"), 48000, 256, callback)
+output.start()
+time.sleep(1.5)
+output.stop()
+print(blocks[0])
+"""
+
+
+@pytest.mark.slow
+@pytest.mark.skipif(not (shutil.which("jackd") and shutil.which("jack_wait")), reason="jackd / jack_wait not installed")
+def test_a_server_of_the_benchs_own_names_the_client_that_overran_in_its_log():
+    # A real JACK dummy server started as the bench starts it, and a PortAudio client that sleeps
+    # through several periods every 25 callbacks: the server's log must blame that client.
+    from rtvoice.bench.realtime import jack_server
+    from rtvoice.procutil import scoped_environ
+
+    with jack_server(name="rtvtest-log", period=256, prefer_realtime=False) as (name, _, log), \
+            scoped_environ({"JACK_DEFAULT_SERVER": name, "JACK_NO_START_SERVER": "1"}):
+        mark = log.mark()
+        proc = subprocess.run([sys.executable, "-c", _SLOW_CLIENT], capture_output=True, text=True, timeout=60,
+                              check=False)
+        assert proc.returncode == 0, proc.stderr
+        time.sleep(0.3)
+        got = log.since(mark)
+    assert got["not_finished"].get("rtvtest-slow", 0) >= 3

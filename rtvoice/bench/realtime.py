@@ -12,6 +12,9 @@ audio server on stage does) and without it otherwise; the report says which.
 In the target's scene an idle client (:mod:`rtvoice.bench.idle_client`, a callback that
 only writes silence) is taken in turns with both: its xruns are the server's and the
 machine's own, the floor the host's counts are read against.
+The server's own log says what each xrun was (:class:`ServerLog`): its timer late (the
+dummy driver woke after its cycle should have begun) or a named client not finished
+by the end of its cycle; each run reports its share of those lines.
 The engine process keeps a histogram of callback time over block period; its
 median and 99th percentile and the xrun count are reported for each scene
 headless and with the Textual UI drawing at its frame rate in this process.
@@ -26,9 +29,12 @@ from __future__ import annotations
 import asyncio
 import contextlib
 import json
+import os
+import re
 import shutil
 import subprocess
 import sys
+import tempfile
 import time
 
 import numpy as np
@@ -45,13 +51,49 @@ SEGMENTS = 4  # each condition's time is split into this many runs, taken in tur
 
 
 SCHEDULING = {"real-time": ["-R", "-P", "70"], "ordinary": ["--no-realtime"]}
+#: jackd's error lines for an xrun (jack2 1.9, written whether or not it runs verbose).
+TIMER_LATE = re.compile(r"JackTimedDriver::Process XRun")
+NOT_FINISHED = re.compile(r"JackEngine::XRun: client = (.+?) was not finished")
 
 
-def _start_server(name: str, period: int, scheduling: str) -> subprocess.Popen | None:
+def xrun_lines(text: str) -> dict:
+    """What the server's log says of its xruns in ``text``: {"timer_late": n, "not_finished": {client: n}}."""
+    counts: dict = {"timer_late": 0, "not_finished": {}}
+    for line in text.splitlines():
+        if TIMER_LATE.search(line):
+            counts["timer_late"] += 1
+        elif m := NOT_FINISHED.search(line):
+            counts["not_finished"][m.group(1)] = counts["not_finished"].get(m.group(1), 0) + 1
+    return counts
+
+
+class ServerLog:
+    """The server's output in a file of its own; :meth:`since` reads what it said after a :meth:`mark`."""
+
+    def __init__(self, path: str):
+        self.path = path
+        self.file = open(path, "wb")  # noqa: SIM115 - the server writes to it until it stops
+
+    def mark(self) -> int:
+        return os.path.getsize(self.path)
+
+    def since(self, mark: int) -> dict:
+        with open(self.path, "rb") as f:
+            f.seek(mark)
+            return xrun_lines(f.read().decode("utf-8", "replace"))
+
+    def close(self) -> None:
+        self.file.close()
+        with contextlib.suppress(OSError):
+            os.unlink(self.path)
+
+
+def _start_server(name: str, period: int, scheduling: str, log: ServerLog | None = None) -> subprocess.Popen | None:
     """A running JACK dummy server, or None when it would not start this way."""
+    out = log.file if log is not None else subprocess.DEVNULL
     proc = subprocess.Popen(["jackd", "-n", name, *SCHEDULING[scheduling], "-d", "dummy", "-r", "48000",
                              "-p", str(period)],
-                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, stdin=subprocess.DEVNULL)
+                            stdout=out, stderr=out, stdin=subprocess.DEVNULL)
     ok = subprocess.run(["jack_wait", "-s", name, "-w", "-t", "10"], capture_output=True, check=False,
                         timeout=20).returncode == 0
     if ok and proc.poll() is None:
@@ -62,21 +104,28 @@ def _start_server(name: str, period: int, scheduling: str) -> subprocess.Popen |
 
 @contextlib.contextmanager
 def jack_server(name: str = SERVER_NAME, period: int = PERIOD_FRAMES, prefer_realtime: bool = True):
-    """A JACK dummy server of our own for the duration of the block; yields (name, scheduling).
+    """A JACK dummy server of our own for the duration of the block; yields (name, scheduling, log).
 
     With ``prefer_realtime`` it asks for real-time scheduling first (granted to root or
     to members of an audio group with rtprio limits) and falls back to ordinary.
+    ``log`` is its :class:`ServerLog`.
     """
-    for scheduling in ("real-time", "ordinary") if prefer_realtime else ("ordinary",):
-        proc = _start_server(name, period, scheduling)
-        if proc is not None:
-            break
-    else:
-        raise RuntimeError("the JACK dummy server did not start")
+    fd, path = tempfile.mkstemp(prefix="rtvoice-jackd-", suffix=".log")
+    os.close(fd)
+    log = ServerLog(path)
     try:
-        yield name, scheduling
+        for scheduling in ("real-time", "ordinary") if prefer_realtime else ("ordinary",):
+            proc = _start_server(name, period, scheduling, log)
+            if proc is not None:
+                break
+        else:
+            raise RuntimeError("the JACK dummy server did not start")
+        try:
+            yield name, scheduling, log
+        finally:
+            stop_process(proc)
     finally:
-        stop_process(proc)
+        log.close()
 
 
 def _chord():
@@ -190,6 +239,8 @@ def merge_runs(runs: list[dict]) -> dict:
     for key in ("seconds", "blocks", "xruns", "late", "ui_frames_drawn", "notes_dropped"):
         if key in runs[0]:
             merged[key] = round(sum(r.get(key) or 0 for r in runs), 2)
+    if "server_log" in runs[0]:
+        merged["server_log"] = merge_server_logs([r["server_log"] for r in runs])
     if "voices_max" in runs[0]:
         merged["voices_max"] = max(r.get("voices_max") or 0 for r in runs)
     for kind in ("load", "render"):
@@ -203,6 +254,24 @@ def merge_runs(runs: list[dict]) -> dict:
     return merged
 
 
+def merge_server_logs(logs: list[dict]) -> dict:
+    """Counts of :func:`xrun_lines` summed over runs."""
+    out: dict = {"timer_late": sum(x["timer_late"] for x in logs), "not_finished": {}}
+    for x in logs:
+        for client, n in x["not_finished"].items():
+            out["not_finished"][client] = out["not_finished"].get(client, 0) + n
+    return out
+
+
+def _logged(log: ServerLog, run, *args, **kwargs) -> dict:
+    """``run(*args, **kwargs)``'s result with what the server's log said meanwhile under "server_log"."""
+    mark = log.mark()
+    result = run(*args, **kwargs)
+    time.sleep(0.2)  # the server writes a late client's line after the cycle it missed
+    result["server_log"] = log.since(mark)
+    return result
+
+
 def callback_distribution(seconds: float) -> dict:
     if seconds <= 0:
         return {"available": False, "reason": "skipped in --quick"}
@@ -210,7 +279,7 @@ def callback_distribution(seconds: float) -> dict:
         return {"available": False, "reason": "jackd / jack_wait not installed (Debian: jackd2)"}
     result: dict = {"available": True, "voices": VOICES, "modes": MODES, "period_frames": PERIOD_FRAMES}
     try:
-        with jack_server() as (name, scheduling), \
+        with jack_server() as (name, scheduling, log), \
                 scoped_environ({"JACK_DEFAULT_SERVER": name, "JACK_NO_START_SERVER": "1"}):
             result["server_scheduling"] = scheduling
             for scene, swing in SCENES.items():
@@ -222,9 +291,10 @@ def callback_distribution(seconds: float) -> dict:
                 for i in range(SEGMENTS):  # in turns, ABBA: a slow spell of the machine falls on all alike
                     for what in conditions if i % 2 == 0 else conditions[::-1]:
                         if what == "idle":
-                            idle.append(_run_idle(part))
+                            idle.append(_logged(log, _run_idle, part))
                         else:
-                            runs[what == "ui"].append(_run_once(part, with_ui=what == "ui", swing=swing))
+                            runs[what == "ui"].append(_logged(log, _run_once, part, with_ui=what == "ui",
+                                                              swing=swing))
                 head, ui = merge_runs(runs[False]), merge_runs(runs[True])
                 result[scene] = {"without_ui": head, "with_ui": ui,
                                  "ui_more_xruns_p": round(more_xruns_p(ui["xruns"], ui["seconds"], head["xruns"],
@@ -233,7 +303,8 @@ def callback_distribution(seconds: float) -> dict:
                     result[scene]["idle_client"] = {
                         "seconds": round(sum(r["seconds"] for r in idle), 2),
                         "blocks": sum(r["blocks"] for r in idle), "xruns": sum(r["xruns"] for r in idle),
-                        "segment_xruns": [r["xruns"] for r in idle]}
+                        "segment_xruns": [r["xruns"] for r in idle],
+                        "server_log": merge_server_logs([r["server_log"] for r in idle])}
     except Exception as err:  # noqa: BLE001 - a failing server must not stop the other benchmarks
         return {"available": False, "reason": f"{type(err).__name__}: {err}"}
     return result

@@ -15,6 +15,13 @@ def _table(headers: list[str], rows: list[list[str]]) -> str:
     return "\n".join([line, rule, *body])
 
 
+def _server_log_text(log: dict) -> str:
+    """The server's own account of its xruns over a condition's runs, in words."""
+    clients = ", ".join(f"{client} {n}" for client, n in sorted(log["not_finished"].items())) or "none"
+    return (f"the server's log over these runs: its timer late {log['timer_late']}; "
+            f"a client not finished by the end of its cycle: {clients}")
+
+
 def _pct(x: float) -> str:
     return f"{100 * x:.1f} %"
 
@@ -151,6 +158,8 @@ def render_text(r: dict) -> str:
                 if m.get("voices_max") is not None:
                     out.append(f"    - most voices sounding {m['voices_max']}; note-ons dropped by the "
                                f"callback's note-on budget {m.get('notes_dropped', 0)}")
+                if m.get("server_log"):
+                    out.append(f"    - {_server_log_text(m['server_log'])}")
             if "ui_more_xruns_p" in rt[scene]:
                 out.append(f"  - more xruns with the UI than headless by chance alone: one-sided p = "
                            f"{rt[scene]['ui_more_xruns_p']:.2f} (exact test of two Poisson counts)")
@@ -159,6 +168,8 @@ def render_text(r: dict) -> str:
                 out.append(f"  - an idle client (its callback writes silence), in turns with both: xruns "
                            f"{idle['xruns']} in {idle['seconds']} s, by run "
                            f"{', '.join(map(str, idle['segment_xruns']))}: the server's and the machine's own")
+                if idle.get("server_log"):
+                    out.append(f"    - {_server_log_text(idle['server_log'])}")
     else:
         out.append(f"- not measured: {rt['reason']}")
     out += _profile_text(r)
