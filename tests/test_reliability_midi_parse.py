@@ -277,3 +277,54 @@ def test_a_strum_of_32_replucks_on_a_slow_machine_is_spread_not_dropped():
         for _ in range(750 - blocks):  # the rest of the 2 s
             guard.admit([])
             guard.learn(base_s)
+
+
+def _strum_pairs(count: int = 32) -> list[tuple[int, int, int, int]]:
+    """A re-strum of ``count`` ringing notes: each note's note-off, then its note-on, all on sample 0."""
+    return [e for i in range(count) for e in ((0, 0x80 | (i // 16), 40 + i, 0), (0, 0x90 | (i // 16), 40 + i, 90))]
+
+
+def test_a_replucks_note_off_waits_with_its_note_on():
+    # At one note-on a block, the events between the last note-on a block takes and the first it
+    # holds back wait with the latter: every block of the strum is one note's note-off and note-on.
+    guard = NoteOnGuard(128 / 48000)
+    guard.cost_s, guard.base_s = 0.001, 0.00015  # a slow machine: one note-on fits a block
+    events, blocks = _strum_pairs(), []
+    while events or guard.waiting:
+        guard.admit(events)
+        blocks.append([(status & 0xF0, note) for _, status, note, _ in events])
+        events = []
+    assert blocks == [[(0x80, 40 + i), (0x90, 40 + i)] for i in range(32)]
+    assert guard.dropped == 0
+    # Events before a block's first note-on still play at once when none fits (no tokens left).
+    guard.tokens = 0.0
+    events = [(0, 0x80, 50, 0), (0, 0x90, 51, 90)]
+    guard.admit(events)
+    assert events == [(0, 0x80, 50, 0)] and guard.waiting == 1
+
+
+def test_a_strum_through_the_guard_changes_each_old_voices_tables_once():
+    # The engine (rtvoice.engine.renderer) works out a voice's changes on one sample as one change of
+    # its tables: with each re-pluck's note-off beside its note-on, the old voice's release and fade
+    # are one table change, not two in two blocks. Counted by the engine's table store: one lookup a
+    # change, so a strum of 32 is 32 starts and 32 old voices, where it was 32 + 32 releases + 32 fades.
+    from rtvoice.bench.scenes import feature_settings
+    from rtvoice.engine.renderer import Engine
+
+    period_s = 128 / 48000
+    engine = Engine(feature_settings(32, 32), 48000, 128)
+    first = [(0, 0x90 | (i // 16), 40 + i, 90) for i in range(32)]
+    engine.render(first)  # the chord rings
+    for _ in range(20):
+        engine.render([])
+    guard = NoteOnGuard(period_s)
+    guard.cost_s, guard.base_s = 0.001, 0.00015
+    tables = engine._tables
+    before = tables.hits + tables.misses
+    events = _strum_pairs()
+    for _ in range(40):
+        guard.admit(events)
+        engine.render(events)
+        events = []
+    assert guard.waiting == 0 and engine.stats.voices >= 32
+    assert tables.hits + tables.misses - before == 64

@@ -12,9 +12,11 @@ to a burst of :data:`BURST`, and no block takes more note-ons than fit in
 :data:`BLOCK_SHARE` of its period beside its other work (a burst of note-ons in one
 block overran the period on this machine: the first block of every big strum was a
 dropout). A note-on without a token, or beyond that, waits for the next block,
-and so does every event after it (order is kept, so no note-off overtakes its
-note-on): a big chord is spread over a few blocks (a few milliseconds) and nothing
-is lost. Only when more than :data:`MAX_DEFERRED` events wait, or the oldest has
+and so does every event after the last note-on the block takes (order is kept, so
+no note-off overtakes its note-on, and a re-pluck's note-off meets its note-on in
+one block, where the engine changes the old voice's tables once, not twice): a big
+chord is spread over a few blocks (a few milliseconds) and nothing is lost. Only
+when more than :data:`MAX_DEFERRED` events wait, or the oldest has
 waited :data:`MAX_WAIT_S` (a flood), are the waiting note-ons dropped and counted,
 and the other events (note-offs, controllers, pedal: cheap) play at once, so a
 panic still works during a flood and is never more than that late.
@@ -96,16 +98,23 @@ class NoteOnGuard:
         allowed = self.allowed
         count = 0
         cut = None
+        after_last = 0  # just after the last note-on this block takes
         for i, (_, status, _, velocity) in enumerate(events):
             if status & 0xF0 == NOTE_ON and velocity:
                 if count == allowed:
                     cut = i
                     break
                 count += 1
+                after_last = i + 1
         self._note_ons = count
         self.tokens -= count
         if cut is None:
             return 0
+        if count:
+            # What comes between the last note-on taken and the first held back waits with the latter:
+            # a re-pluck's note-off then meets its note-on in one block, where the engine makes the
+            # old voice's release and fade one change of tables rather than two in two blocks.
+            cut = after_last
         rest = events[cut:]
         del events[cut:]
         if len(rest) <= self.max_deferred and self._waited < self._max_wait_blocks:
