@@ -407,3 +407,43 @@ def test_a_server_of_the_benchs_own_names_the_client_that_overran_in_its_log():
         time.sleep(0.3)
         got = log.since(mark)
     assert got["not_finished"].get("rtvtest-slow", 0) >= 3
+
+
+def test_host_minutes_set_the_real_time_part_of_the_plan(monkeypatch):
+    # A fake runner, on purpose: the real one measures for minutes. The plan it is handed is the point.
+    from rtvoice.bench import runner
+    from rtvoice.cli import main
+
+    seen = []
+    monkeypatch.setenv("RTVOICE_BENCH_CHILD", "1")  # no re-run in a child process
+    monkeypatch.setattr(runner, "run", lambda plan, progress=None: seen.append(plan) or {"plan": plan.name})
+    monkeypatch.setattr("rtvoice.bench.report.render_text", lambda result: "")
+    assert main(["bench", "--quick", "--host-minutes", "2.5"]) == 0
+    assert main(["bench", "--quick"]) == 0
+    assert seen[0].realtime_seconds == 150.0 and seen[0].voices == runner.QUICK.voices
+    assert seen[1].realtime_seconds == runner.QUICK.realtime_seconds == 0.0
+
+
+@pytest.mark.slow
+@pytest.mark.skipif(not (shutil.which("jackd") and shutil.which("jack_wait")), reason="jackd / jack_wait not installed")
+def test_the_real_time_host_benchmark_runs_every_condition_on_a_real_server():
+    # The real-time part end to end, briefly: a JACK dummy server of the bench's own, the host headless
+    # and with the Textual UI in turns, the idle client, the server's log, merged per condition.
+    from rtvoice.bench.realtime import PERIOD_FRAMES, VOICES, callback_distribution
+
+    got = callback_distribution(8.0)
+    assert got["available"], got.get("reason")
+    for scene in ("ringing", "swinging"):
+        for key in ("without_ui", "with_ui"):
+            m = got[scene][key]
+            assert m["segments"] == 4 and len(m["segment_xruns"]) == 4
+            assert m["blocks"] == pytest.approx(m["seconds"] * 48000 / PERIOD_FRAMES, rel=0.15)
+            assert m["voices_max"] >= VOICES and m["notes_dropped"] == 0  # the whole chord sounded
+            assert 0 < m["load_median"] <= m["load_p99"] < 1
+            assert set(m["server_log"]) == {"timer_late", "not_finished"}
+            assert sum(m["server_log"]["not_finished"].values()) <= m["blocks"]
+        assert got[scene]["with_ui"]["ui_frames_drawn"] > 0
+        assert 0 <= got[scene]["ui_more_xruns_p"] <= 1
+    idle = got["ringing"]["idle_client"]
+    assert idle["blocks"] == pytest.approx(idle["seconds"] * 48000 / PERIOD_FRAMES, rel=0.15)
+    assert "idle_client" not in got["swinging"]

@@ -3,12 +3,26 @@
 from __future__ import annotations
 
 import argparse
+import dataclasses
 import json
 import os
 import sys
 from pathlib import Path
 
 from rtvoice.bench.machine import BLAS_THREADS_ENV
+
+MAX_HOST_MINUTES = 60.0
+
+
+def host_minutes(text: str) -> float:
+    """An argparse type: minutes of each condition of the real-time host benchmark, above 0, at most an hour."""
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a number of minutes, got {text!r}") from None
+    if not 0 < value <= MAX_HOST_MINUTES:  # also refuses nan
+        raise argparse.ArgumentTypeError(f"expected minutes above 0 and at most {MAX_HOST_MINUTES:g}, got {text}")
+    return value
 
 
 def register(sub: argparse._SubParsersAction) -> None:
@@ -19,6 +33,9 @@ def register(sub: argparse._SubParsersAction) -> None:
     b.add_argument("--json", action="store_true", help="print one JSON object with every figure")
     b.add_argument("--write", metavar="FILE", type=output_path,
                    help="also write the figures to FILE (.json: JSON, else the table)")
+    b.add_argument("--host-minutes", metavar="M", type=host_minutes,
+                   help="minutes of each condition of the real-time host benchmark under JACK (default 1; "
+                        "--quick skips it unless given): longer runs weigh xrun spells more fairly")
     b.set_defaults(func=run_bench)
 
 
@@ -38,10 +55,14 @@ def run_bench(args: argparse.Namespace) -> int:
     argv = [a for a, on in (("--quick", args.quick), ("--json", args.json)) if on]
     if args.write:
         argv += ["--write", args.write]
+    if args.host_minutes is not None:
+        argv += ["--host-minutes", repr(args.host_minutes)]
     _single_blas_thread(argv)
     from rtvoice.bench import report, runner
 
     plan = runner.QUICK if args.quick else runner.FULL
+    if args.host_minutes is not None:
+        plan = dataclasses.replace(plan, realtime_seconds=60.0 * args.host_minutes)
     progress = None if args.json else (lambda msg: print(f"  {msg}", file=sys.stderr, flush=True))
     result = runner.run(plan, progress)
     result["command"] = "rtvoice bench" + "".join(f" {a}" for a in argv)
