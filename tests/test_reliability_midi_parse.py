@@ -134,6 +134,11 @@ def _block(note_ons: int, others: int = 0) -> list[tuple[int, int, int, int]]:
     return sorted(events, key=lambda e: e[0])
 
 
+def _strum_pairs(count: int = 32) -> list[tuple[int, int, int, int]]:
+    """A re-strum of ``count`` ringing notes: each note's note-off, then its note-on, all on sample 0."""
+    return [e for i in range(count) for e in ((0, 0x80 | (i // 16), 40 + i, 0), (0, 0x90 | (i // 16), 40 + i, 90))]
+
+
 def note_ons(events):
     return [e for e in events if e[1] & 0xF0 == 0x90 and e[3]]
 
@@ -260,8 +265,7 @@ def test_a_strum_of_32_replucks_on_a_slow_machine_is_spread_not_dropped():
     period_s, cost_s, base_s = 128 / 48000, 0.001, 0.00015
     guard = NoteOnGuard(period_s)
     for _ in range(3):
-        strum = [(0, 0x80 | (i // 16), 40 + i, 0) for i in range(32)]
-        strum = [e for i in range(32) for e in (strum[i], (0, 0x90 | (i // 16), 40 + i, 90))]
+        strum = _strum_pairs()
         played, blocks = [], 0
         events = list(strum)  # admit works in place
         while blocks < 750:  # 2 s of blocks
@@ -277,11 +281,6 @@ def test_a_strum_of_32_replucks_on_a_slow_machine_is_spread_not_dropped():
         for _ in range(750 - blocks):  # the rest of the 2 s
             guard.admit([])
             guard.learn(base_s)
-
-
-def _strum_pairs(count: int = 32) -> list[tuple[int, int, int, int]]:
-    """A re-strum of ``count`` ringing notes: each note's note-off, then its note-on, all on sample 0."""
-    return [e for i in range(count) for e in ((0, 0x80 | (i // 16), 40 + i, 0), (0, 0x90 | (i // 16), 40 + i, 90))]
 
 
 def test_a_replucks_note_off_waits_with_its_note_on():

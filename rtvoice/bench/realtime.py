@@ -88,12 +88,11 @@ class ServerLog:
             os.unlink(self.path)
 
 
-def _start_server(name: str, period: int, scheduling: str, log: ServerLog | None = None) -> subprocess.Popen | None:
-    """A running JACK dummy server, or None when it would not start this way."""
-    out = log.file if log is not None else subprocess.DEVNULL
+def _start_server(name: str, period: int, scheduling: str, log: ServerLog) -> subprocess.Popen | None:
+    """A running JACK dummy server writing its output to ``log``, or None when it would not start this way."""
     proc = subprocess.Popen(["jackd", "-n", name, *SCHEDULING[scheduling], "-d", "dummy", "-r", "48000",
                              "-p", str(period)],
-                            stdout=out, stderr=out, stdin=subprocess.DEVNULL)
+                            stdout=log.file, stderr=log.file, stdin=subprocess.DEVNULL)
     ok = subprocess.run(["jack_wait", "-s", name, "-w", "-t", "10"], capture_output=True, check=False,
                         timeout=20).returncode == 0
     if ok and proc.poll() is None:
