@@ -11,6 +11,7 @@ from __future__ import annotations
 import argparse
 import asyncio
 import math
+import sys
 from concurrent.futures import Executor
 from typing import Any
 
@@ -25,6 +26,8 @@ from rtvoice.engine.schema import MAX_PICKUPS, lookup
 from rtvoice.engine.settings import Settings, SettingsError, apply_assignments
 from rtvoice.ui import userstate
 from rtvoice.ui.format import note_name
+from rtvoice.ui.guard import log_error, ui_log_path
+from rtvoice.ui.keeping import AppGuard
 from rtvoice.ui.keyboard import OCTAVE_DOWN, OCTAVE_UP, KeyboardPlayer
 from rtvoice.ui.prediction import predicted_levels_db
 from rtvoice.ui.preset_actions import PresetActions
@@ -60,7 +63,7 @@ ParamTable:focus { height: 2fr; border-top: heavy $accent; }
 """
 
 
-class RtvoiceApp(PresetActions, App[int]):
+class RtvoiceApp(AppGuard, PresetActions, App[int]):
     """The instrument's screen. ``link`` is a started :class:`rtvoice.host.link.EngineLink`."""
 
     TITLE = "rtvoice"
@@ -68,6 +71,7 @@ class RtvoiceApp(PresetActions, App[int]):
     ENABLE_COMMAND_PALETTE = False
     BINDINGS = [
         Binding("ctrl+q", "request_quit", "quit", priority=True),
+        Binding("ctrl+c", "request_quit", "quit", show=False, priority=True),  # what a terminal user expects
         Binding("f1", "help", "help"),
         Binding("question_mark", "help", "help", show=False),
         Binding("ctrl+o", "presets", "presets", priority=True),
@@ -148,6 +152,7 @@ class RtvoiceApp(PresetActions, App[int]):
         show = self.safety_note
         if show is None:
             show = not userstate.safety_note_read()
+        self.offer_kept_sound()  # under the listening note, which is read first
         if show:
             self.push_screen(SafetyScreen(), self._safety_read)
         self._tick()
@@ -179,6 +184,12 @@ class RtvoiceApp(PresetActions, App[int]):
 
     # -- the live picture ----------------------------------------------------------
     def _tick(self) -> None:
+        try:
+            self._tick_once()
+        except Exception as err:  # noqa: BLE001 - a timer that raises would stop; the picture must go on
+            self.report_unexpected(err, "the live picture")
+
+    def _tick_once(self) -> None:
         if self._restarting:  # the link is being rebuilt on another thread: leave it alone
             return
         self.frames += 1
@@ -323,6 +334,9 @@ class RtvoiceApp(PresetActions, App[int]):
         self.engine.load(self.session.settings, self.say_error)
         self.say(f"{n} pickup{'s' if n > 1 else ''}")
         self._refresh_sound()
+
+    def sound_restored(self, what: str) -> None:
+        self._use_sound(what)
 
     def _use_sound(self, what: str) -> None:
         """Send the whole current sound to the engine after a load, revert or flip."""
@@ -493,9 +507,19 @@ def run_ui(link: Any, args: argparse.Namespace | None = None) -> int:
     session = session_for(settings, getattr(args, "preset", None))
     spawner = normal_priority_spawner()
     lower_ui_thread_priority()
+    app = RtvoiceApp(link, session, sample_rate_hz=getattr(args, "rate", None), spawner=spawner)
     try:
-        app = RtvoiceApp(link, session, sample_rate_hz=getattr(args, "rate", None), spawner=spawner)
         result = app.run()
+    except Exception as err:  # noqa: BLE001 - Textual itself failed: keep the sound, say so, exit non-zero
+        log_error(err, "the UI (fatal)")
+        app.keep_unsaved()
+        result = None
+        app._return_code = 1
     finally:
         spawner.shutdown(wait=False)
+    code = app.return_code or 0
+    if code:
+        kept = f"; the unsaved sound is kept in {app.kept_at} and offered at the next start" if app.kept_at else ""
+        sys.stderr.write(f"rtvoice: the UI ended on an error (details in {ui_log_path()}){kept}\n")
+        return code
     return int(result or 0)

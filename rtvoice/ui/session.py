@@ -110,6 +110,16 @@ class SoundSession:
         self._put(replace(self.slot, settings=new))
         return new
 
+    def restore(self, name: str, settings: Settings, preset: str = "", origin: str = "", path: str = "") -> None:
+        """Put a sound kept from an earlier run into slot ``name``; it shows as unsaved."""
+        saved = None
+        if path:
+            try:
+                saved = self._read(path)
+            except (presets.PresetError, ValueError):  # the preset went away: the sound is all there is
+                saved, preset, origin, path = None, "", "", ""
+        self.slots[name] = Slot(settings, preset, origin, saved, path)
+
     def flip(self) -> Settings:
         """Make the other slot the sound being played and edited."""
         self.active = "B" if self.active == "A" else "A"

@@ -10,6 +10,8 @@ from textual.containers import Horizontal, Vertical
 from textual.screen import ModalScreen
 from textual.widgets import Button, Input, Static
 
+from rtvoice.ui.guard import Guarded
+
 DIALOG_CSS = """
 .dialog { width: 70; max-width: 100%; height: auto; border: heavy $accent; padding: 0 1;
           background: $panel; }
@@ -19,7 +21,7 @@ DIALOG_CSS = """
 """
 
 
-class AskScreen(ModalScreen[bool]):
+class AskScreen(Guarded, ModalScreen[bool]):
     """A question answered with y (yes) or n / escape (no)."""
 
     DEFAULT_CSS = DIALOG_CSS + "AskScreen { align: center middle; }"
@@ -49,7 +51,7 @@ class AskScreen(ModalScreen[bool]):
         self.dismiss(value)
 
 
-class PromptScreen(ModalScreen[str | None]):
+class PromptScreen(Guarded, ModalScreen[str | None]):
     """One line of text; ``check`` returns an error text to refuse it, or None to accept.
 
     A refused entry keeps the prompt open with the reason shown, so nothing changes

@@ -9,6 +9,7 @@ from textual.screen import ModalScreen
 from textual.widgets import Button, Static
 
 from rtvoice.engine.output import CEILING_DBFS
+from rtvoice.ui.guard import Guarded
 from rtvoice.ui.keyboard import OCTAVE_DOWN, OCTAVE_UP, layout_lines
 
 HELP_KEYS = [
@@ -56,7 +57,7 @@ def help_text() -> str:
     return "\n".join(lines)
 
 
-class HelpScreen(ModalScreen[None]):
+class HelpScreen(Guarded, ModalScreen[None]):
     DEFAULT_CSS = """
     HelpScreen { align: center middle; }
     #help-body { width: 84; max-width: 100%; height: 100%; max-height: 100%; border: heavy $accent;
@@ -83,7 +84,7 @@ SAFETY_TEXT = (
 )
 
 
-class SafetyScreen(ModalScreen[None]):
+class SafetyScreen(Guarded, ModalScreen[None]):
     DEFAULT_CSS = """
     SafetyScreen { align: center middle; }
     #safety-box { width: 64; max-width: 100%; height: auto; border: heavy $warning; padding: 0 1;

@@ -13,6 +13,7 @@ from textual.widgets import Button, Input, OptionList, Static
 from textual.widgets.option_list import Option
 
 from rtvoice.engine.presets import PresetError, PresetInfo, PresetWarning, read_preset_file
+from rtvoice.ui.guard import Guarded
 
 ACTIONS = ("load", "save_as", "rename", "delete", "revert")
 
@@ -33,7 +34,7 @@ class PresetChoice:
         return self.info.origin if self.info else ""
 
 
-class PresetScreen(ModalScreen[PresetChoice | None]):
+class PresetScreen(Guarded, ModalScreen[PresetChoice | None]):
     DEFAULT_CSS = """
     PresetScreen { align: center middle; }
     #preset-box { width: 76; max-width: 100%; height: 90%; border: heavy $accent;

@@ -9,6 +9,7 @@ from textual.geometry import Region
 from textual.strip import Strip
 from textual.widget import Widget
 
+from rtvoice.ui.guard import Guarded
 from rtvoice.ui.widgets.cells import strip_of
 from rtvoice.ui.widgets.levels import BOTTOM_DB, TOP_DB, axis_labels, heights, line_row, solid_row
 
@@ -26,7 +27,7 @@ def row_style(row_top_db: float) -> Style:
 NULL_MARK = "·"  # the model predicts nothing (below the scale) for this harmonic
 
 
-class HarmonicBars(Widget):
+class HarmonicBars(Guarded, Widget):
     """Two columns per harmonic: a solid bar (live) and a thin line (predicted at the attack)."""
 
     DEFAULT_CSS = """

@@ -9,6 +9,7 @@ from rich.text import Text
 from textual.widget import Widget
 
 from rtvoice.ui.format import db_text
+from rtvoice.ui.guard import Guarded
 
 ACTIVE_S = 0.3  # a MIDI event lights the activity mark for this long
 WARN_LOAD = 0.7
@@ -21,7 +22,7 @@ def load_percent(value: float) -> str:
     return f"{100.0 * value:3.0f}%"
 
 
-class Meters(Widget):
+class Meters(Guarded, Widget):
     """Two lines of numbers, each with its name, so nothing depends on colour."""
 
     DEFAULT_CSS = """

@@ -9,6 +9,7 @@ from textual.widgets import DataTable
 from rtvoice.engine.schema import MAX_PICKUPS, lookup
 from rtvoice.engine.settings import Settings
 from rtvoice.ui.format import value_text
+from rtvoice.ui.guard import Guarded
 
 PICKUP_COUNT = "pickups"  # a row of our own: how many pickups there are
 COLUMNS = ("group", "parameter", "value", "unit", "range", "control")
@@ -67,7 +68,7 @@ def control_text(name: str, controls: list[dict]) -> str:
     return text if len(text) <= width else text[: width - 1] + "…"
 
 
-class ParamTable(DataTable):
+class ParamTable(Guarded, DataTable):
     """The parameter list; asks the app for changes through messages."""
 
     DEFAULT_CSS = """

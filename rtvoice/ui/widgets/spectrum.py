@@ -6,6 +6,7 @@ import numpy as np
 from rich.text import Text
 from textual.widget import Widget
 
+from rtvoice.ui.guard import Guarded
 from rtvoice.ui.widgets.levels import axis_labels, heights, solid_cell
 
 AXIS = 4
@@ -37,7 +38,7 @@ def columns_from_bins(spectrum_db: np.ndarray, bin_hz: float, edges_hz: np.ndarr
     return out
 
 
-class SpectrumView(Widget):
+class SpectrumView(Guarded, Widget):
     """Output spectrum as solid bars; a row of marks shows where the harmonics fall."""
 
     DEFAULT_CSS = """

@@ -6,11 +6,12 @@ from rich.text import Text
 from textual.widget import Widget
 
 from rtvoice.ui.format import note_name
+from rtvoice.ui.guard import Guarded
 
 MODIFIED_MARK = "✱ changed"
 
 
-class SoundLine(Widget):
+class SoundLine(Guarded, Widget):
     """Sound name, origin, changed marker, A/B slot, octave and what the last note is."""
 
     DEFAULT_CSS = """
@@ -45,7 +46,7 @@ class SoundLine(Widget):
         return text
 
 
-class MessageLine(Widget):
+class MessageLine(Guarded, Widget):
     """The last message: errors begin with 'refused:' or 'error:' so they read without colour."""
 
     DEFAULT_CSS = """

@@ -17,6 +17,7 @@ from textual.widget import Widget
 
 from rtvoice.engine.schema import lookup
 from rtvoice.engine.settings import Settings
+from rtvoice.ui.guard import Guarded
 
 BRIDGE_LABEL, NUT_LABEL = "bridge ", " nut"
 PLUCK_MARK = "▼"
@@ -48,7 +49,7 @@ def elements_of(settings: Settings) -> list[Element]:
     return out
 
 
-class StringView(Widget, can_focus=True):
+class StringView(Guarded, Widget, can_focus=True):
     """Bridge on the left, nut on the right, everything drawn to scale."""
 
     DEFAULT_CSS = """
