@@ -22,6 +22,7 @@ def register(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser("play", help="play in real time from MIDI (the terminal UI unless --headless)")
     p.add_argument("--headless", action="store_true", help="no UI: a status line on stderr once a second")
     add_sound_options(p)
+    _follow_the_output_rate(p)
     p.add_argument("--audio-device", metavar="NAME|none", default=None, type=_not_blank("--audio-device"),
                    help="audio output (part of its name, or its number from 'rtvoice devices'); "
                         "none runs on a silent clock")
@@ -39,6 +40,15 @@ def register(sub: argparse._SubParsersAction) -> None:
 
     d = sub.add_parser("devices", help="list audio outputs and MIDI inputs, and which are used by default")
     d.set_defaults(func=run_devices)
+
+
+def _follow_the_output_rate(p: argparse.ArgumentParser) -> None:
+    """Playing live, --rate defaults to the output's own rate (a JACK server's, a device's)."""
+    for action in p._actions:
+        if action.dest == "rate":
+            action.default = None
+            action.help = ("sample rate in Hz (default: the audio server's or device's own rate; "
+                           "48000 on the silent clock)")
 
 
 def _not_blank(option: str):

@@ -7,6 +7,7 @@ from rtvoice.host.audio import find_device, load_sounddevice, output_devices
 from rtvoice.host.errors import HostError
 from rtvoice.host.link import DEFAULT_CLIENT_NAME
 from rtvoice.host.midi_ports import MidiInputs, api_name, choose_api, load_rtmidi
+from rtvoice.host.rates import choose_rate
 
 
 def audio_lines() -> tuple[list[str], str]:
@@ -26,7 +27,9 @@ def audio_lines() -> tuple[list[str], str]:
                      f"-{1000 * d['default_high_output_latency']:.1f} ms")
     if not lines:
         lines.append("  no audio output devices: rtvoice play runs on a silent clock")
-    used = f"{default['name']} ({default['hostapi_name']})" if default is not None else "none (silent clock)"
+    used = "none (silent clock)"
+    if default is not None:
+        used = f"{default['name']} ({default['hostapi_name']}) at {choose_rate(None, default).reason}"
     return lines, used
 
 

@@ -36,6 +36,7 @@ from rtvoice.host.meters import CallbackMeter, Publisher, VoiceStage  # noqa: E4
 from rtvoice.host.midi_ports import MidiInputs  # noqa: E402
 from rtvoice.host.options import parse_mpe  # noqa: E402
 from rtvoice.host.overload import NoteOnGuard  # noqa: E402
+from rtvoice.host.rates import block_note, choose_rate  # noqa: E402
 from rtvoice.host.recorder import Recorder  # noqa: E402
 from rtvoice.host.ring import SampleRing  # noqa: E402
 from rtvoice.host.route import AudioRoute  # noqa: E402
@@ -117,8 +118,18 @@ class EngineHost:
     def __init__(self, conn, config: dict):
         self.conn = conn
         self.config = config
-        self.rate, self.block = int(config["rate"]), int(config["block"])
+        self.block = int(config["block"])
+        self.route = AudioRoute(config.get("audio_device"), 0, self.block,
+                                config.get("client_name") or "rtvoice", self.process)
+        # The rate follows the output (a JACK server's, a device's own) unless --rate asked for one.
+        choice = choose_rate(config.get("rate"), self.route.probe())
+        self.rate = self.route.rate = choice.rate_hz
         self.period_s = self.block / self.rate
+        self.notes: list[str] = [f"sample rate: {choice.reason}"]
+        said = block_note(self.block, choice.server_period_frames, self.rate)
+        if said:
+            self.notes.append(said)
+        self.server_period = choice.server_period_frames
         try:
             self.engine = Engine(config["settings"], self.rate, self.block)
         except ValueError as err:
@@ -131,9 +142,6 @@ class EngineHost:
         self.recorder = Recorder(config["record"], self.rate, self.ring, append=bool(config.get("record_append"))) \
             if config.get("record") else None
         self.midi = MidiInputs(config.get("midi_in") or "all", config.get("client_name") or "rtvoice")
-        self.route = AudioRoute(config.get("audio_device"), self.rate, self.block,
-                                config.get("client_name") or "rtvoice", self.process)
-        self.notes: list[str] = []
         # Hand-over between threads.
         self._inbox: deque = deque()  # commands for the callback
         self._midi_in: deque = deque()  # (arrival_s, status, d1, d2) from the UI
@@ -202,6 +210,7 @@ class EngineHost:
         _send(self.conn, {
             "type": "ready", "audio_port": self.route.label, "audio_ports": self.route.ports,
             "midi_ports": self.midi.names(), "notes": list(self.notes), "rate": self.rate, "block": self.block,
+            "server_period": self.server_period,
             "latency_s": getattr(self.route.output, "latency_s", 0.0), "pid": os.getpid(),
             "cpu_wakeup": self.cpu_wakeup, "heap_frozen": self.heap_frozen,
             "heap_walked": heap.full_collection_objects(),

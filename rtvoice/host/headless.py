@@ -27,6 +27,9 @@ def describe_start(link: EngineLink) -> list[str]:
     info = link.ready_info
     lines = [f"audio: {info.get('audio_port', '?')}, {info.get('rate')} Hz, {info.get('block')} frames"
              f" ({1000 * info.get('block', 0) / max(info.get('rate', 1), 1):.1f} ms)"]
+    latency = link.latency
+    if latency is not None:
+        lines.append(latency.text())
     ports = info.get("midi_ports") or []
     lines.append(f"MIDI in: {', '.join(ports) if ports else 'none'}")
     if info.get("cpu_wakeup"):

@@ -24,6 +24,7 @@ from rtvoice.engine.settings import Settings, SettingsError
 from rtvoice.host.board import SILENT_DB, SPECTRUM_BINS, Board
 from rtvoice.host.errors import HostError
 from rtvoice.host.options import parse_mpe
+from rtvoice.host.rates import DEFAULT_RATE_HZ, Latency, latency_of
 
 START_TIMEOUT_S = 30.0  # spawning imports numpy and scipy: seconds on a slow machine
 CLOSE_TIMEOUT_S = 5.0
@@ -62,14 +63,14 @@ class EngineLink:
     """Client of the engine process. Every method returns at once; none raises when the engine died,
     except :meth:`start` (and the validation in :meth:`set_value`)."""
 
-    def __init__(self, settings: Settings, *, audio_device: str | None = None, rate: int = 48000,
+    def __init__(self, settings: Settings, *, audio_device: str | None = None, rate: int | None = 48000,
                  block: int = 256, midi_in: str = "all", record: str | None = None,
                  client_name: str = DEFAULT_CLIENT_NAME, mpe: str | None = None,
                  engine_log: str | None = None):
         parse_mpe(mpe)  # a bad zone spec fails here, not in the engine process
         self._settings = settings
         self.config = {
-            "audio_device": audio_device, "rate": int(rate), "block": int(block),
+            "audio_device": audio_device, "rate": None if rate is None else int(rate), "block": int(block),
             "midi_in": midi_in, "record": None if record is None else str(record),
             "client_name": client_name, "mpe": mpe,
             "engine_log": None if engine_log is None else str(engine_log),  # engine stdout/stderr go here
@@ -199,6 +200,21 @@ class EngineLink:
             if old.is_alive():
                 old.kill()
         self._old.clear()
+
+    @property
+    def rate_hz(self) -> int:
+        """The rate the engine plays at (it follows the output when no rate was asked for)."""
+        return int(self.ready_info.get("rate") or self.config["rate"] or DEFAULT_RATE_HZ)
+
+    @property
+    def latency(self) -> Latency | None:
+        """MIDI-to-sound latency of the running engine, in parts (None before it is ready)."""
+        return latency_of(self.ready_info)
+
+    @property
+    def startup_notes(self) -> list[str]:
+        """What the engine said at start-up (the rate it follows, outputs or inputs it could not open)."""
+        return [str(n) for n in self.ready_info.get("notes", [])]
 
     @property
     def exitcode(self) -> int | None:

@@ -59,6 +59,17 @@ class AudioRoute:
     def running(self) -> bool:
         return self.output is not None and self.output.running()
 
+    def probe(self) -> dict | None:
+        """The output device :meth:`open` will use (None: the silent clock), before any stream opens,
+        so the rate can follow it. A named device that matches nothing raises HostError."""
+        if self.wanted == "none":
+            return None
+        if self.sd is None:
+            self.sd, _reason = load_sounddevice(self.client_name)  # open() says the reason
+            if self.sd is None:
+                return None
+        return find_device(self.sd, self.wanted)
+
     # -- opening ------------------------------------------------------------------------
     def open(self, first: bool = True) -> bool:
         """Open the wanted output; on first start a named device that fails raises HostError,
@@ -91,7 +102,8 @@ class AudioRoute:
         except HostError as err:
             fmt = jackinfo.server_format() if jack else None
             if fmt and fmt[0] != self.rate:
-                err = HostError(f"{err} (the JACK server runs at {fmt[0]} Hz: use --rate {fmt[0]})")
+                err = HostError(f"{err} (the JACK server runs at {fmt[0]} Hz: leave out --rate to follow it, "
+                                f"or use --rate {fmt[0]})")
             if first and self.wanted is not None:
                 raise err from None
             if first:

@@ -101,7 +101,7 @@ class RtvoiceApp(AppGuard, PresetActions, App[int]):
             session = SoundSession(getattr(link, "settings", None) or Settings.defaults())
         self.session = session
         config = getattr(link, "config", {}) or {}
-        self.sample_rate_hz = float(sample_rate_hz or config.get("rate", 48000))
+        self.sample_rate_hz = float(sample_rate_hz or getattr(link, "rate_hz", None) or config.get("rate") or 48000)
         self.frame_rate_hz = frame_rate_hz
         self.safety_note = safety_note
         self.player = KeyboardPlayer()
@@ -152,10 +152,20 @@ class RtvoiceApp(AppGuard, PresetActions, App[int]):
         show = self.safety_note
         if show is None:
             show = not userstate.safety_note_read()
+        self._show_startup()
         self.offer_kept_sound()  # under the listening note, which is read first
         if show:
             self.push_screen(SafetyScreen(), self._safety_read)
         self._tick()
+
+    def _show_startup(self) -> None:
+        """The engine's rate and latency on the meters; its start-up problems on the message line."""
+        latency = getattr(self.link, "latency", None)
+        rate = f"{self.sample_rate_hz / 1000:g} kHz"
+        self.meters.show_facts(rate + (f", {latency.text()}" if latency is not None else ""))
+        problems = [n for n in getattr(self.link, "startup_notes", []) if not n.startswith("sample rate:")]
+        if problems:
+            self.say_error("warning: " + "; ".join(problems))
 
     def _safety_read(self, _result: None) -> None:
         problem = userstate.remember_safety_note()

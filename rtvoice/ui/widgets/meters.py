@@ -35,6 +35,14 @@ class Meters(Guarded, Widget):
         self._midi_count = 0
         self._midi_at = -1e9
         self._line = ("", "")
+        self.facts = ""  # rate and MIDI-to-sound latency, set once the engine is ready
+
+    def show_facts(self, text: str) -> None:
+        """What stays the same while the engine runs: its rate and latency (second line)."""
+        if text != self.facts:
+            self.facts = text
+            self._line = self._lines(time.monotonic())
+            self.refresh()
 
     def show_snapshot(self, snap) -> None:
         now = time.monotonic()
@@ -58,7 +66,8 @@ class Meters(Guarded, Widget):
             f"limit -{abs(s.gain_reduction_db):.1f} dB  MIDI {midi_mark}{s.midi_events}"
         )
         ports = ", ".join(s.midi_ports) if s.midi_ports else "none"
-        second = f"MIDI in: {ports}   audio out: {s.audio_port or 'none'}"
+        facts = f"{self.facts}   " if self.facts else ""  # first: the port names are long
+        second = f"{facts}MIDI in: {ports}   audio out: {s.audio_port or 'none'}"
         return first, second
 
     def render(self) -> Text:
