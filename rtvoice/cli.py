@@ -8,6 +8,7 @@ expected errors into one line on stderr and exit status 2.
 from __future__ import annotations
 
 import argparse
+import difflib
 import importlib
 import sys
 import warnings
@@ -24,11 +25,45 @@ EXIT_BAD_INPUT = 2
 
 
 class OneLineParser(argparse.ArgumentParser):
-    """An argument parser whose errors are one line, exit status 2."""
+    """An argument parser whose errors are one line, exit status 2, with a suggestion for a typing mistake."""
 
     def error(self, message: str) -> None:  # type: ignore[override]
         sys.stderr.write(f"{self.prog}: error: {message} (see {self.prog} --help)\n")
         raise SystemExit(EXIT_BAD_INPUT)
+
+    def _check_value(self, action: argparse.Action, value) -> None:
+        """argparse's choice check, naming the closest choice: ``rendr`` -> did you mean 'render'?"""
+        try:
+            super()._check_value(action, value)
+        except argparse.ArgumentError as err:
+            close = difflib.get_close_matches(str(value), [str(c) for c in action.choices or ()], n=1)
+            if not close:
+                raise
+            raise argparse.ArgumentError(action, f"invalid choice: {value!r}; did you mean {close[0]!r}? "
+                                                 f"(choose from {', '.join(map(repr, action.choices))})") from err
+
+    def parse_known_args(self, args=None, namespace=None):  # type: ignore[override]
+        if self._subparsers is None:  # a command's own parser: it knows every option the command takes
+            self._refuse_mistyped_option(sys.argv[1:] if args is None else list(args))
+        return super().parse_known_args(args, namespace)
+
+    def _refuse_mistyped_option(self, args: list[str]) -> None:
+        """Refuse an unknown long option by name, with the closest known one (``--prset`` -> ``--preset``).
+
+        Checked before argparse reads the line: left to it, the option's value could be
+        taken for a positional and the error would name something else.
+        """
+        known = [o for o in self._option_string_actions if o.startswith("--")]
+        for token in args:
+            if token == "--":  # what follows is positional
+                return
+            if not token.startswith("--") or " " in token:  # argparse reads a token with a space as a value
+                continue
+            option = token.split("=", 1)[0]
+            if option in self._option_string_actions or any(k.startswith(option) for k in known):
+                continue  # known, or an abbreviation argparse resolves (or calls ambiguous)
+            close = difflib.get_close_matches(option, known, n=1)
+            self.error(f"unrecognized option {option}" + (f"; did you mean {close[0]}?" if close else ""))
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -48,8 +83,9 @@ def main(argv: list[str] | None = None) -> int:
     argv = sys.argv[1:] if argv is None else argv
     warnings.showwarning = _one_line_warning
     parser = build_parser()
-    if not argv and "play" in parser._subparsers._group_actions[0].choices:  # plain rtvoice opens the UI
-        argv = ["play"]
+    commands = parser._subparsers._group_actions[0].choices
+    if "play" in commands and (not argv or (argv[0].startswith("-") and argv[0] not in ("-h", "--help"))):
+        argv = ["play", *argv]  # plain rtvoice is rtvoice play, options and all (rtvoice --preset NAME)
     args = parser.parse_args(argv)
     if not getattr(args, "func", None):
         parser.print_help()

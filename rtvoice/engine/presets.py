@@ -7,7 +7,10 @@ file, key, value and what is allowed; saving is atomic (temporary file, fsync,
 rename, fsync of the folder), so a crash never leaves a half-written preset.
 
 Presets are data only: the file is parsed as TOML and every value is checked
-against the schema; nothing in it is evaluated, imported or executed.
+against the schema; nothing in it is evaluated, imported or executed. Positions,
+widths and the scale length may be written as lengths with a unit
+(``position = "40mm"``, ``scale_length_mm = "25.5in"``): the settings convert them
+with the scale length the whole file leaves, and a save writes them as numbers.
 
 Temporary files are named ``.NAME.toml.XXXX.tmp``: listing skips them (hidden,
 not ``*.toml``). A save killed between creating and renaming its temporary file

@@ -9,7 +9,9 @@ allowed; nothing partial is ever returned.
 
 from __future__ import annotations
 
+import difflib
 import math
+import re
 import tomllib
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, replace
@@ -24,6 +26,7 @@ from rtvoice.engine.schema import (
     default_pickup,
     lookup,
 )
+from rtvoice.engine.units import LENGTH_EXAMPLES, Length, fraction_of_string, length_within, parse_length
 from rtvoice.physics.damping import loss_coefficients
 
 MAX_TEXT = 2000
@@ -34,6 +37,8 @@ MAX_TOML_DEPTH = 32  # tables and arrays nested deeper than any preset needs (to
 INT64 = 2**63  # TOML 1.0: integers are 64-bit; larger ones "must" be an error
 MIN_RESONANCE_HZ = 200.0  # pickup resonances lie in the kHz range; 0 bypasses the filter
 MIN_INDUCTANCE_H = 0.01  # below this a "coil" is no pickup; 0 switches the circuit model off
+SCALE_KEY = "string.scale_length_mm"
+SUGGEST_CUTOFF = 0.75  # difflib ratio: "inharmonicty" -> "inharmonicity" (0.97), not "colour" -> "t60_low"
 
 
 class SettingsError(ValueError):
@@ -112,7 +117,7 @@ class Settings:
                     try:
                         lookup(key)
                     except KeyError as err:
-                        unknown(key, v, str(err.args[0]).split(": ", 1)[-1])
+                        unknown(key, v, str(err.args[0]).split(": ", 1)[-1] + did_you_mean(key))
                         continue
                     changes[key] = v
             elif any(n.startswith(f"{top}.") for n in PARAMS):
@@ -158,6 +163,7 @@ class Settings:
                         self.controls)
 
     def _changed(self, changes, source, name, description, n_pickups=None) -> Settings:
+        changes = self._resolve_lengths(changes, source)
         values = dict(self.values)
         pickups = [dict(p) for p in self.pickups]
         if n_pickups is not None:
@@ -166,7 +172,7 @@ class Settings:
             try:
                 param, index = lookup(key)
             except KeyError as err:
-                raise SettingsError(key, raw, str(err.args[0]).split(": ", 1)[-1], source) from None
+                raise SettingsError(key, raw, str(err.args[0]).split(": ", 1)[-1] + did_you_mean(key), source) from None
             try:
                 value = param.check(raw)
             except (ValueError, OverflowError) as err:  # OverflowError: an int beyond float range
@@ -184,6 +190,24 @@ class Settings:
         settings = Settings(values, tuple(pickups), name, description, self.controls)
         settings._check_together(source)
         return settings
+
+    def _resolve_lengths(self, changes: dict[str, Any], source: str) -> dict[str, Any]:
+        """``changes`` with every length typed with a unit (``"40mm"``, ``"25.5in"``) as the schema's number.
+
+        The scale length is resolved first and positions and widths are divided by
+        the one these changes leave, so the order they were written in (on the
+        command line, in a file) never changes the sound.
+        """
+        if not any(isinstance(v, str) for v in changes.values()):
+            return changes
+        out = dict(changes)
+        scale_mm = self.values[SCALE_KEY]
+        if SCALE_KEY in out:
+            scale_mm = out[SCALE_KEY] = _checked_mm(PARAMS[SCALE_KEY], SCALE_KEY, out[SCALE_KEY], source)
+        for key, raw in out.items():
+            if isinstance(raw, str) and is_fraction_of_length(key):
+                out[key] = _fraction_from_text(lookup(key)[0], key, raw, scale_mm, source)
+        return out
 
     def _check_together(self, source: str) -> None:
         lo, hi = self.values["string.t60_low"], self.values["string.t60_high"]
@@ -249,6 +273,57 @@ class Settings:
         return out
 
 
+def is_fraction_of_length(key: str) -> bool:
+    """Positions and widths: fractions of the speaking length, which may also be typed as lengths."""
+    try:
+        param, _ = lookup(key)
+    except KeyError:
+        return False
+    return key.startswith(("pickup.", "excitation.")) and key.rsplit(".", 1)[1] in ("position", "width") \
+        and param.kind == "float" and not param.unit
+
+
+def _length(key: str, raw: str, source: str, what: str) -> Length:
+    try:
+        return parse_length(raw)
+    except ValueError as err:
+        reason = str(err) if "finite" in str(err) else f"expected {what} or a length like {LENGTH_EXAMPLES}"
+        raise SettingsError(key, raw, reason, source) from None
+
+
+def _fraction_from_text(param, key: str, raw: str, scale_mm: float, source: str) -> float:
+    """A position or width typed as a length, as a fraction of ``scale_mm``; refused in the typed unit."""
+    length = _length(key, raw, source, f"a fraction of the length ({param.describe_range()})")
+    try:
+        return fraction_of_string(length, param.low, param.high, scale_mm)
+    except ValueError as err:
+        raise SettingsError(key, raw, str(err), source) from None
+
+
+def _checked_mm(param, key: str, raw: Any, source: str) -> float:
+    """A length in mm (a number, or text with its unit), checked against ``param``'s range in the typed unit."""
+    if not isinstance(raw, str):
+        try:
+            return param.check(raw)
+        except (ValueError, OverflowError) as err:
+            raise SettingsError(key, raw, f"{err} (allowed: {param.describe_range()})", source) from None
+    length = _length(key, raw, source, "a number of millimetres")
+    try:
+        return length_within(length, param.low, param.high)
+    except ValueError as err:
+        raise SettingsError(key, raw, str(err), source) from None
+
+
+def did_you_mean(key: str) -> str:
+    """`` (did you mean NAME?)`` for a mistyped parameter name close to a real one, else ''."""
+    names = all_names(1)
+    index = re.search(r"\.(\d+)\.", key)
+    if index and int(index.group(1)) < MAX_PICKUPS:  # keep the pickup the name meant
+        names = [n.replace("pickup.0.", f"pickup.{index.group(1)}.") for n in names]
+    close = difflib.get_close_matches(key, names, n=1, cutoff=SUGGEST_CUTOFF)
+    return f" (did you mean {close[0]}?)" if close else ""
+
+
 def _read_pickups(value: Any, source: str, unknown) -> list[dict[str, Any]]:
     if not isinstance(value, list) or not all(isinstance(v, Mapping) for v in value):
         raise SettingsError("pickup", value, "expected [[pickup]] tables", source)
@@ -261,7 +336,7 @@ def _read_pickups(value: Any, source: str, unknown) -> list[dict[str, Any]]:
             if f in PICKUP_FIELDS:
                 kept[f] = item[f]
             else:
-                unknown(f"pickup.{i}.{f}", item[f])
+                unknown(f"pickup.{i}.{f}", item[f], "unknown key" + did_you_mean(f"pickup.{i}.{f}"))
         out.append(kept)
     return out
 
@@ -287,40 +362,38 @@ def _check_plain_data(data: Any, source: str, depth: int = 0, where: str = "") -
         raise SettingsError(where, data, "a whole number beyond 64 bits (TOML 1.0 integers are 64-bit)", source)
 
 
-def parse_assignment(text: str) -> tuple[str, Any]:
+def parse_assignment(text: str, source: str = "") -> tuple[str, Any]:
     """Parse ``KEY=VALUE`` from the command line into (name, typed value).
 
     VALUE is read as a TOML value when it parses as one (numbers, quoted strings,
-    lists), else as a bare word; positions may carry an ``mm`` suffix, which the
-    caller converts with the scale length.
+    lists), else as a bare word; lengths keep their unit (``40mm``, ``1.5in``) as
+    text until the settings convert them with the scale length.
     """
     if "=" not in text:
-        raise SettingsError(text, "", "expected KEY=VALUE")
+        raise SettingsError(text, "", "expected KEY=VALUE", source)
     key, raw = (s.strip() for s in text.split("=", 1))
     try:
         lookup(key)
     except KeyError as err:
-        raise SettingsError(key, raw, str(err.args[0]).split(": ", 1)[-1]) from None
+        raise SettingsError(key, raw, str(err.args[0]).split(": ", 1)[-1] + did_you_mean(key), source) from None
     try:
         value = tomllib.loads(f"v = {raw}")["v"]
     except tomllib.TOMLDecodeError:
         value = raw
     if isinstance(value, float) and not math.isfinite(value):
-        raise SettingsError(key, raw, "expected a finite number")
+        raise SettingsError(key, raw, "expected a finite number", source)
     return key, value
 
 
 def apply_assignments(settings: Settings, assignments: Iterable[str], source: str = "--set") -> Settings:
-    """Apply ``KEY=VALUE`` strings in order; an ``mm`` suffix on a position uses the scale length."""
+    """Apply ``KEY=VALUE`` strings (for a key given twice, the last wins).
+
+    Lengths typed with a unit (``40mm``, ``4cm``, ``1.5in``) are converted after
+    every assignment is read, with the scale length they leave: the order of the
+    assignments never matters.
+    """
     changes: dict[str, Any] = {}
-    scale_mm = settings.get("string.scale_length_mm")
     for text in assignments:
-        key, value = parse_assignment(text)
-        if isinstance(value, str) and value.endswith("mm") and (key.endswith(".position") or key.endswith(".width")):
-            try:
-                mm = float(value[:-2])
-            except ValueError:
-                raise SettingsError(key, value, "expected a number of millimetres like 120mm", source) from None
-            value = mm / changes.get("string.scale_length_mm", scale_mm)
+        key, value = parse_assignment(text, source)
         changes[key] = value
     return settings.with_values(changes, source)

@@ -33,15 +33,17 @@ def register(sub: argparse._SubParsersAction) -> None:
         description="Tonal descriptors of every pickup/pluck placement on a grid, computed from "
         "the "
         "engine's string modes. Positions are fractions of the length from the bridge, or "
-        "millimetres with an mm suffix (40:160:2mm).",
+        "lengths with a unit, mm, cm or in (40:160:2mm, 2:12:0.5cm, 1.5in). Notes are MIDI numbers or "
+        "names (E2, F#3, Bb1).",
     )
     p.add_argument(
         "--note",
         action="append",
         type=_notes,
         required=True,
-        metavar="N|A:B",
-        help="MIDI note, or an inclusive range A:B[:STEP] (repeatable)",
+        metavar="NOTE|A:B",
+        help="MIDI note number or name (E2, F#3, Bb1; 60 = C4), or an inclusive range A:B[:STEP] "
+        "such as E2:E3 (repeatable)",
     )
     p.add_argument(
         "--pickup",

@@ -6,16 +6,9 @@ import math
 from typing import Any
 
 from rtvoice.engine.schema import Param
+from rtvoice.engine.units import NOTE_NAMES, note_name  # one note naming for the UI and the command line
 
-NOTE_NAMES = ("C", "C#", "D", "D#", "E", "F", "F#", "G", "G#", "A", "A#", "B")
-
-
-def note_name(note: int) -> str:
-    """Scientific pitch name of a MIDI note (60 = C4, common practice)."""
-    if note < 0:
-        return "-"
-    return f"{NOTE_NAMES[note % 12]}{note // 12 - 1}"
-
+__all__ = ["NOTE_NAMES", "db_text", "note_name", "position_text", "value_text"]
 
 SILENT_DB = -120.0  # the host reports silence as -120 dB
 
