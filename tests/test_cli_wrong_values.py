@@ -43,13 +43,18 @@ BASE = {
 }
 
 NUMBER_WRONG = ["abc", "", "nan", "inf", "-99999999", "1e999", "0x10"]
-PATH_WRONG = ["", "/no/such/folder/x.out", "{folder}", "{folder}/"]
+PATH_WRONG = ["", "/no/such/folder/x.out", "{folder}", "{folder}/", "{folder}/" + "n" * 300 + ".out"]  # 300 > NAME_MAX 255
 # Wrong values for options that take free text, by argparse dest. What makes each wrong is said beside it.
 TEXT_WRONG = {
     "preset": ["no-such-preset", "../../etc/passwd", "/no/such/file.toml", "", "bad name!", "{garbage}"],
     "set": ["noequals", "=3", "string.colour=3", "voices=1000", "voices=1" + "0" * 400, "pickup.0.position=nan",
             "pickup.9.position=0.2", "string.t60_low=inf", "voices=", "string.modes=[[[1]]]"],
     "output": PATH_WRONG,
+    # render's second sound (A/B): as --preset and --set; B's file as -o, and B's file being A's ({out} is -o's)
+    "ab": ["no-such-preset", "../../etc/passwd", "/no/such/file.toml", "", "bad name!", "{garbage}"],
+    "set_b": ["noequals", "=3", "string.colour=3", "voices=1000", "pickup.0.position=nan", "pickup.9.position=0.2",
+              "string.t60_low=inf", "voices=", "string.modes=[[[1]]]", "pickup.0.position=2mmm"],
+    "output_b": [*PATH_WRONG, "{out}", "{folder}/" + "b" * 300 + ".wav"],
     "record": PATH_WRONG,
     "write": PATH_WRONG,
     "plot": PATH_WRONG,

@@ -19,6 +19,7 @@ from rtvoice.engine.presets import (
     read_preset_file,
 )
 from rtvoice.engine.settings import Settings, apply_assignments
+from rtvoice.engine.units import parse_note
 from rtvoice.offline.midifile import MidiFileError, read_midi_events
 from rtvoice.offline.render import iter_blocks, longest_frames, note_events, text_progress
 from rtvoice.offline.wav import WavStreamWriter
@@ -37,12 +38,16 @@ def register(sub: argparse._SubParsersAction) -> None:
     r = sub.add_parser("render", help="render a MIDI file or one note to a WAV file")
     src = r.add_mutually_exclusive_group(required=True)
     src.add_argument("midifile", nargs="?", help="Standard MIDI File (type 0 or 1)")
-    src.add_argument("--note", type=_midi_note, help="render one MIDI note (0-127) instead")
+    src.add_argument("--note", type=_midi_note, metavar="NOTE",
+                     help="render one note instead: MIDI number 0-127 or name (E2, F#3, Bb1; 60 = C4)")
     r.add_argument("--velocity", type=_velocity, default=100, help="note-on velocity 1-127 (default 100)")
     r.add_argument("--seconds", type=_seconds, default=2.0, help="how long --note is held (default 2)")
     r.add_argument("-o", "--output", required=True, type=output_path, help="WAV file to write (32-bit float)")
     add_sound_options(r, block=2048)
     r.add_argument("--tail-cap", type=_seconds, default=30.0, help="longest ring-out after the last event, s")
+    from rtvoice.offline import ab_render  # it builds on this module's writer: a top-level import would be circular
+
+    ab_render.add_options(r)
     r.set_defaults(func=run_render)
 
     p = sub.add_parser("presets", help="list, show or check presets")
@@ -60,7 +65,8 @@ def add_sound_options(parser: argparse.ArgumentParser, block: int = 256) -> None
     """--preset, --set, --rate and --block, shared by the commands that make sound."""
     parser.add_argument("--preset", type=preset_arg, help="preset name or path to a .toml file")
     parser.add_argument("--set", action="append", default=[], metavar="KEY=VALUE",
-                        help="change one parameter by its dotted name (repeatable)")
+                        help="change one parameter by its dotted name (repeatable); positions, widths and "
+                             "string.scale_length_mm also take lengths: 40mm, 4cm, 1.5in")
     parser.add_argument("--rate", type=_rate, default=48000, help="sample rate in Hz (default 48000)")
     parser.add_argument("--block", type=_block, default=block, help=f"block size in frames (default {block})")
 
@@ -71,7 +77,10 @@ def settings_from_args(args: argparse.Namespace) -> Settings:
 
 
 def run_render(args: argparse.Namespace) -> int:
+    from rtvoice.offline import ab_render  # see register
+
     settings = settings_from_args(args)
+    pair = ab_render.plan_pair(args, settings)  # None unless a second sound is asked for; checks it first
     out = Path(args.output)
     if args.midifile:
         events = read_midi_events(args.midifile)
@@ -82,10 +91,15 @@ def run_render(args: argparse.Namespace) -> int:
     if longest_frames(events, args.rate, args.block, args.tail_cap) > WAV_MAX_FRAMES:
         raise RenderError(f"{out}: the render could last longer than a WAV file holds at {args.rate} Hz "
                           f"({WAV_MAX_FRAMES / args.rate / 3600:.1f} hours); lower --tail-cap or --rate")
+    if pair:
+        return ab_render.render_pair(pair, events, args)
     length_s = events[-1][0] if events else 0.0
     progress = text_progress(f"rendering {out.name}") if length_s > PROGRESS_ABOVE_S and sys.stderr.isatty() else None
     blocks = iter_blocks(events, settings, args.rate, args.block, args.tail_cap, progress)
-    frames, peak = write_blocks(out, blocks, args.rate)
+    try:
+        frames, peak = write_blocks(out, blocks, args.rate)
+    except OSError as err:  # mkstemp's, before write_blocks' own guard: e.g. a name too long with the temporary suffix
+        raise RenderError(f"cannot write {out}: {err.strerror or err}") from None
     peak_db = 20 * math.log10(peak) if peak > 0 else float("-inf")
     print(f"wrote {out} ({frames / args.rate:.2f} s, peak {peak_db:.1f} dBFS)")
     return 0
@@ -150,11 +164,14 @@ def output_path(text: str) -> str:
     if "\0" in text:
         raise argparse.ArgumentTypeError(f"{text!r} is not a usable file name")
     path = Path(text)
-    if path.is_dir() or text.endswith(("/", os.sep)):
-        raise argparse.ArgumentTypeError(f"{text} is a folder: give a file name inside it")
-    folder = path.parent if str(path.parent) else Path(".")
-    if not folder.is_dir():
-        raise argparse.ArgumentTypeError(f"{folder}: no such folder for the output file")
+    try:
+        if path.is_dir() or text.endswith(("/", os.sep)):
+            raise argparse.ArgumentTypeError(f"{text} is a folder: give a file name inside it")
+        folder = path.parent if str(path.parent) else Path(".")
+        if not folder.is_dir():
+            raise argparse.ArgumentTypeError(f"{folder}: no such folder for the output file")
+    except OSError as err:  # a name the system refuses outright (too long, say)
+        raise argparse.ArgumentTypeError(f"{text[:60]}...: not a usable file name ({err.strerror})") from None
     return text
 
 
@@ -198,7 +215,14 @@ def _ranged(kind, low, high, what):
     return parse
 
 
-_midi_note = _ranged(int, 0, 127, "MIDI note")
+def _midi_note(text: str) -> int:
+    """An argparse type for --note: a MIDI number or a note name (rtvoice.engine.units)."""
+    try:
+        return parse_note(text)
+    except ValueError as err:
+        raise argparse.ArgumentTypeError(str(err)) from None
+
+
 _velocity = _ranged(int, 1, 127, "velocity")
 _seconds = _ranged(float, 0.0, 3600.0, "seconds")
 _rate = _ranged(int, 8000, 192000, "sample rate")

@@ -1,7 +1,8 @@
 """The survey as a CSV file: one row per grid point, one header line.
 
-Columns and units are documented in docs/survey.md. Rows run through notes,
-sensings, widths and pluck positions, with the pickup position changing fastest.
+Columns and units are documented in the README, "Placement survey" > "The CSV columns"
+(README.md#the-csv-columns). Rows run through notes, sensings, widths and pluck positions,
+with the pickup position changing fastest.
 The file is written to a temporary name and renamed, so a failed run leaves none.
 """
 

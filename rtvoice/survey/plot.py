@@ -1,7 +1,8 @@
 """PNG pictures of a survey: a heat map of one descriptor and a bar chart of two placements.
 
-matplotlib is the optional ``plot`` extra; without it these raise SurveyError with
-the install command (one line, exit status 2 on the command line).
+matplotlib is one of rtvoice's own dependencies, drawn on its file-only Agg backend (no display
+needed). Should it be missing all the same (an install cut short), these raise SurveyError saying
+to rerun the set-up (one line, exit status 2 on the command line).
 """
 
 from __future__ import annotations
@@ -30,14 +31,16 @@ LABELS = {
 
 
 def pyplot(option: str, path: Path | str):
-    """matplotlib.pyplot on the file-only Agg backend, or SurveyError naming the extra."""
+    """matplotlib.pyplot on the file-only Agg backend, or SurveyError saying how to install it."""
     try:
         import matplotlib
     except ImportError:
+        # scripts/run installs every dependency into the project's .venv; a bare `pip install` of a
+        # package by this name would reach an unrelated one on the public index.
         raise SurveyError(
             option,
             str(path),
-            "needs matplotlib, the optional 'plot' extra: pip install 'rtvoice[plot]'",
+            "needs matplotlib, which is not installed: rerun scripts/run (it sets up .venv with everything)",
         ) from None
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
