@@ -43,7 +43,8 @@ BASE = {
 }
 
 NUMBER_WRONG = ["abc", "", "nan", "inf", "-99999999", "1e999", "0x10"]
-PATH_WRONG = ["", "/no/such/folder/x.out", "{folder}", "{folder}/", "{folder}/" + "n" * 300 + ".out"]  # 300 > NAME_MAX 255
+# The last: 300 bytes, over the usual file-name limit (NAME_MAX 255 on Linux, common practice).
+PATH_WRONG = ["", "/no/such/folder/x.out", "{folder}", "{folder}/", "{folder}/" + "n" * 300 + ".out"]
 # Wrong values for options that take free text, by argparse dest. What makes each wrong is said beside it.
 TEXT_WRONG = {
     "preset": ["no-such-preset", "../../etc/passwd", "/no/such/file.toml", "", "bad name!", "{garbage}"],

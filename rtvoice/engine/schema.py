@@ -193,3 +193,24 @@ def all_names(n_pickups: int) -> list[str]:
 
 def default_pickup() -> dict[str, Any]:
     return {f: p.default for f, p in PICKUP_FIELDS.items()}
+
+
+#: Where added pickups go, as fractions of the string from the bridge: about 40, 100, 160 and 214 mm
+#: on a 648 mm scale, bridge, middle and neck places of common electric guitars (from memory, common
+#: practice), then the middle of the widest gap left.
+ADDED_PICKUP_PLACES = (0.062, 0.154, 0.247, 0.33)
+PICKUP_SPACING = 0.03  # an added pickup keeps at least this far (a fraction) from the others
+
+
+def added_pickup(existing: list[dict[str, Any]]) -> dict[str, Any]:
+    """A new pickup, at a place of its own: never stacked on a pickup already there."""
+    taken = sorted(float(p["position"]) for p in existing)
+    pickup = default_pickup()
+    for place in ADDED_PICKUP_PLACES:
+        if all(abs(place - t) >= PICKUP_SPACING for t in taken):
+            pickup["position"] = place
+            return pickup
+    edges = [0.02, *taken, 0.5]  # between the bridge end and the middle, where pickups sit
+    gaps = [(b - a, (a + b) / 2) for a, b in zip(edges, edges[1:], strict=False)]
+    pickup["position"] = round(max(gaps)[1], 4)
+    return pickup

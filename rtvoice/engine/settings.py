@@ -22,6 +22,7 @@ from rtvoice.engine.schema import (
     PARAMS,
     PICKUP_FIELDS,
     TOP_LEVEL_TEXT,
+    added_pickup,
     all_names,
     default_pickup,
     lookup,
@@ -155,7 +156,7 @@ class Settings:
             raise SettingsError("pickup", n, f"between 1 and {MAX_PICKUPS} pickups", "")
         pickups = list(self.pickups[:n])
         while len(pickups) < n:
-            pickups.append(default_pickup())
+            pickups.append(added_pickup(pickups))
         return Settings(self.values, tuple(pickups), self.name, self.description, self.controls)
 
     def renamed(self, name: str, description: str | None = None) -> Settings:
@@ -167,7 +168,9 @@ class Settings:
         values = dict(self.values)
         pickups = [dict(p) for p in self.pickups]
         if n_pickups is not None:
-            pickups = pickups[:n_pickups] + [default_pickup() for _ in range(n_pickups - len(pickups))]
+            pickups = pickups[:n_pickups]
+            while len(pickups) < n_pickups:
+                pickups.append(added_pickup(pickups))
         for key, raw in changes.items():
             try:
                 param, index = lookup(key)

@@ -25,6 +25,7 @@ from textual.widgets import ContentSwitcher, Footer, Input
 from rtvoice.engine.schema import MAX_PICKUPS, lookup
 from rtvoice.engine.settings import Settings, SettingsError, apply_assignments
 from rtvoice.ui import userstate
+from rtvoice.ui.compare import SlotComparison, compare_slots
 from rtvoice.ui.format import note_name
 from rtvoice.ui.guard import log_error, ui_log_path
 from rtvoice.ui.keeping import AppGuard
@@ -38,19 +39,24 @@ from rtvoice.ui.session import SoundSession, session_for
 from rtvoice.ui.stepping import stepped
 from rtvoice.ui.sync import EngineView
 from rtvoice.ui.widgets.bars import HarmonicBars
+from rtvoice.ui.widgets.compare_view import CompareView
 from rtvoice.ui.widgets.meters import Meters
 from rtvoice.ui.widgets.params import PICKUP_COUNT, ParamTable
 from rtvoice.ui.widgets.spectrum import SpectrumView
 from rtvoice.ui.widgets.status import MessageLine, SoundLine
-from rtvoice.ui.widgets.string_view import StringView
+from rtvoice.ui.widgets.string_view import StringView, clamp_to_range
+from rtvoice.ui.words import display_name, said_value
 
 FRAME_RATE_HZ = 30.0
 METER_EVERY = 3  # numbers are read, not watched: 10 updates a second are plenty
+XRUN_NOTE_EVERY_S = 5.0  # a climbing xrun count is explained at most this often
 PREDICTED_MIN = 32  # harmonics predicted even when fewer fit on screen
 NO_NOTE_DEFAULT = 40  # E2: the note the bars predict for before anything is played
-VIEWS = ("harmonics", "spectrum")
-MAIN_SCREEN_ACTIONS = ("presets", "save", "flip", "copy_slot", "toggle_view", "learn", "help")
-STRING_TITLE = "string: bridge → nut (▼ pluck, ▒ pickup aperture)"
+VIEWS = ("harmonics", "spectrum", "compare")
+#: Actions of the main screen: while a dialog is in front they wait, and the footer leaves them out.
+MAIN_SCREEN_ACTIONS = ("presets", "save", "flip", "copy_slot", "toggle_view", "learn", "help", "survey",
+                       "restart_engine")
+STRING_TITLE = "string: bridge → nut (▼ pluck, ▒ pickup aperture; ▽ and ⋮ the other slot's)"
 PARAMS_TITLE = "parameters (←/→ step, enter types a value)"
 
 APP_CSS = """
@@ -113,10 +119,13 @@ class RtvoiceApp(AppGuard, PresetActions, App[int]):
         self.frames = 0
         self._predicted_key: tuple | None = None
         self._predicted = np.zeros(0)
+        self._compared_key: tuple | None = None
+        self._compared: SlotComparison | None = None
         self._snap = None
         self._engine_down_said = False
         self._quit_asked = False
         self._restarting = False
+        self._xrun_seen = (0, 0, -1.0)  # xruns and late callbacks last explained, and when (s of UI time)
 
     # -- layout -------------------------------------------------------------------
     def compose(self) -> ComposeResult:
@@ -125,6 +134,7 @@ class RtvoiceApp(AppGuard, PresetActions, App[int]):
         self.views = ContentSwitcher(initial="harmonics", id="views")
         self.bars = HarmonicBars(id="harmonics")
         self.spectrum = SpectrumView(id="spectrum")
+        self.compare = CompareView(id="compare")
         self.string_view = StringView(s, id="string")
         self.params = ParamTable(s, id="params")
         self.meters = Meters(id="meters")
@@ -136,6 +146,7 @@ class RtvoiceApp(AppGuard, PresetActions, App[int]):
         with self.views:
             yield self.bars
             yield self.spectrum
+            yield self.compare
         yield self.string_view
         yield self.params
         yield self.message_line
@@ -175,6 +186,8 @@ class RtvoiceApp(AppGuard, PresetActions, App[int]):
     def _title_views(self, caption: str = "") -> None:
         if self.view == "harmonics":
             title = f"harmonics {caption} — █ live, │ predicted at the attack"
+        elif self.view == "compare":
+            title = f"A/B {caption} — █ slot A, │ slot B, predicted at the attack (playing: {self.session.active})"
         else:
             title = f"output spectrum {caption} — ^ marks the harmonics"
         if self.views.border_title != title:  # an unchanged title must not cost a repaint
@@ -216,6 +229,7 @@ class RtvoiceApp(AppGuard, PresetActions, App[int]):
                 self._refresh_sound()
         if self.frames % METER_EVERY == 0 or not snap.engine_alive:
             self.meters.show_snapshot(snap)
+            self._explain_xruns(snap)
         if not snap.engine_alive:
             if not self._engine_down_said:
                 self._engine_down_said = True
@@ -224,6 +238,25 @@ class RtvoiceApp(AppGuard, PresetActions, App[int]):
             self._engine_down_said = False
         self._snap = snap
         self._draw_live(snap)
+
+    def _explain_xruns(self, snap) -> None:
+        """When the xrun count climbs, say why: rtvoice's own callback overran its period (``late``
+        climbed too), or it finished in time and the machine or the audio server held it up."""
+        xruns, late = int(getattr(snap, "xruns", 0)), int(getattr(snap, "late", 0))
+        seen_xruns, seen_late, said_at = self._xrun_seen
+        if xruns <= seen_xruns:
+            return
+        now = self.frames / self.frame_rate_hz
+        if now - said_at < XRUN_NOTE_EVERY_S and said_at >= 0:
+            return  # the count keeps climbing on the meters; the reason is said now and then
+        more, own = xruns - seen_xruns, late - seen_late
+        if own > 0:
+            why = (f"rtvoice's callback overran its period {own} time{'s' if own > 1 else ''}: "
+                   "fewer voices or string modes, or a larger --block, lighten it")
+        else:
+            why = "the callback finished in time: the machine or the audio server held up the audio thread"
+        self.say_error(f"warning: {more} more xrun{'s' if more > 1 else ''} ({xruns} in all); {why}")
+        self._xrun_seen = (xruns, late, now)
 
     def _draw_live(self, snap) -> None:
         """Bars (or spectrum), their title and the top line, from ``snap`` and the sound now set."""
@@ -243,6 +276,10 @@ class RtvoiceApp(AppGuard, PresetActions, App[int]):
             if snap.note >= 0:
                 live = self.engine.live_levels_db(self.session.settings, snap)
             bars.show_levels(live, predicted)
+        elif self.view == "compare":
+            velocity = int(getattr(snap, "velocity", 0) or self.player.velocity)
+            self.compare.show_comparison(self._comparison_for(note, max(PREDICTED_MIN,
+                                                                        self.compare.harmonics_shown()), velocity))
         else:
             marks = snap.mode_freqs_hz if snap.note >= 0 else None
             nyquist_hz = self.sample_rate_hz / 2
@@ -250,6 +287,15 @@ class RtvoiceApp(AppGuard, PresetActions, App[int]):
         caption = f"of {note_name(note)}" + ("" if snap.note >= 0 else " (last note; none ringing)")
         self._title_views(caption)
         self._refresh_line(snap.note)
+
+    def _comparison_for(self, note: int, n: int, velocity: int) -> SlotComparison:
+        """Slots A and B predicted for one note, recomputed only when a sound, the note or the size changes."""
+        a, b = self.session.slots["A"].settings, self.session.slots["B"].settings
+        key = (id(a), id(b), note, n, velocity)
+        if key != self._compared_key or self._compared is None:
+            self._compared_key = key
+            self._compared = compare_slots(a, b, note, n, velocity, self.sample_rate_hz)
+        return self._compared
 
     def _predicted_for(self, note: int, f0_hz: float | None, n: int, velocity: int) -> np.ndarray:
         """Predicted attack levels, recomputed only when the sound, note or size changes."""
@@ -271,7 +317,8 @@ class RtvoiceApp(AppGuard, PresetActions, App[int]):
     def _refresh_sound(self) -> None:
         """Hand the current settings to every widget that draws them."""
         s = self.session.settings
-        self.string_view.show_settings(s)
+        other = self.session.slots["B" if self.session.active == "A" else "A"].settings
+        self.string_view.show_settings(s, other)
         self.params.show_settings(s, self.engine.controls())
         self._refresh_line()
         self._draw_live(self._snap)
@@ -284,7 +331,7 @@ class RtvoiceApp(AppGuard, PresetActions, App[int]):
             target = entry.get("target") or msg.get("target") or msg.get("name", "")
             source = f"CC{entry['cc']}" if "cc" in entry else msg.get("text", "a controller")
             self.session_controls_changed()
-            self.say(f"learned: {source} now drives {target} (saving the preset keeps it)")
+            self.say(f"learned: {source} now drives {display_name(target)} (saving the preset keeps it)")
         elif kind in ("error", "exited"):
             self.say_error(f"error: {msg.get('text', msg)}")
         elif kind == "device":
@@ -320,7 +367,8 @@ class RtvoiceApp(AppGuard, PresetActions, App[int]):
             self.say_error(str(err))
             return
         self.engine.set_value(name, self.session.settings.get(name), self.say_error)
-        self.say(f"{name} = {self.session.settings.get(name)!r}")
+        s = self.session.settings
+        self.say(said_value(name, s.get(name), s.get("string.scale_length_mm")))
         self._refresh_sound()
 
     def check_typed(self, name: str, text: str) -> str | None:
@@ -356,6 +404,12 @@ class RtvoiceApp(AppGuard, PresetActions, App[int]):
 
     def on_string_view_move_requested(self, message: StringView.MoveRequested) -> None:
         self.change(message.name, message.value)
+
+    def on_string_view_nudge_requested(self, message: StringView.NudgeRequested) -> None:
+        """A step in mm from the sound's value now (not the widget's last picture of it)."""
+        s = self.session.settings
+        value = s.get(message.name) + message.delta_mm / s.get("string.scale_length_mm")
+        self.change(message.name, clamp_to_range(message.name, value))
 
     def on_string_view_selected(self, message: StringView.Selected) -> None:
         self.params.select_name(message.element.position_name)
@@ -439,7 +493,7 @@ class RtvoiceApp(AppGuard, PresetActions, App[int]):
     def action_learn(self) -> None:
         if self.learning:
             self.engine.learn(None, self.say_error)
-            self.say(f"learning for {self.learning} cancelled")
+            self.say(f"learning for {display_name(self.learning)} cancelled")
             self.learning = None
             self._refresh_line()
             return
@@ -449,7 +503,7 @@ class RtvoiceApp(AppGuard, PresetActions, App[int]):
             return
         if self.engine.learn(name, self.say_error):
             self.learning = name
-            self.say(f"learn: move a control on the MIDI device to drive {name} (ctrl+l cancels)")
+            self.say(f"learn: move a control on the MIDI device to drive {display_name(name)} (ctrl+l cancels)")
             self._refresh_line()
 
     def _selected_parameter(self) -> str | None:
@@ -474,6 +528,7 @@ class RtvoiceApp(AppGuard, PresetActions, App[int]):
                 ok = await loop.run_in_executor(self.spawner, self.engine.restart, problems.append)
         finally:
             self._restarting = False
+        self._xrun_seen = (0, 0, -1.0)  # xruns and late callbacks last explained, and when (s of UI time)
         for text in problems:
             self.say_error(text)
         if ok:

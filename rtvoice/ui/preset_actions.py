@@ -25,9 +25,9 @@ class PresetActions:
             return
         self._save(slot.preset)
 
-    def _save(self, name: str) -> None:
+    def _save(self, name: str, description: str | None = None) -> None:
         try:
-            path = self.session.save(name)
+            path = self.session.save(name, description)
         except (presets.PresetError, SettingsError) as err:
             self.say_error(str(err))
             return
@@ -48,19 +48,27 @@ class PresetActions:
                 return f"{text!r} is a factory preset (read-only): choose another name"
             return None
 
-        def done(name: str | None) -> None:
-            if name is None:
+        def described(name: str, description: str | None) -> None:
+            if description is None:  # escape: nothing saved
                 return
             exists = (presets.user_dir() / f"{name}.toml").is_file()
             if exists and name != self.session.slot.preset:
                 ask = AskScreen(f"A user preset named {name!r} exists. Replace it?",
                                 "replace", "keep it")
-                self.push_screen(ask, lambda yes: self._save(name) if yes else None)
+                self.push_screen(ask, lambda yes: self._save(name, description) if yes else None)
             else:
-                self._save(name)
+                self._save(name, description)
+
+        def named(name: str | None) -> None:
+            if name is None:
+                return
+            # The copy's description is the user's to write: the old one may describe another placement.
+            self.push_screen(PromptScreen(f"description of {name}", self.session.settings.description,
+                                          "what this sound is: where its pluck and pickups sit, what it is for"),
+                             lambda text: described(name, text))
 
         self.push_screen(PromptScreen("save the sound as a user preset", suggestion,
-                                      "letters, digits, - and _", check=check), done)
+                                      "letters, digits, - and _", check=check), named)
 
     def action_presets(self) -> None:
         screen = PresetScreen(presets.list_presets(), self.session.slot.preset)

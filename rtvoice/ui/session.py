@@ -152,7 +152,7 @@ class SoundSession:
         self.notes = [str(w.message) for w in caught if issubclass(w.category, presets.PresetWarning)]
         return settings
 
-    def save(self, name: str | None = None) -> str:
+    def save(self, name: str | None = None, description: str | None = None) -> str:
         """Save the active sound as user preset ``name`` (default: the one it came from).
 
         Factory presets are refused by :func:`rtvoice.engine.presets.save_preset`; the
@@ -164,8 +164,9 @@ class SoundSession:
         if self.slot.origin == "factory" and name == self.slot.preset:
             raise presets.PresetError(f"{name!r} is a factory preset and cannot be overwritten: "
                                       "save it under another name")
-        path = presets.save_preset(self.settings, name)
-        stored = self.settings.renamed(name)
+        sound = self.settings if description is None else self.settings.renamed(self.settings.name, description)
+        path = presets.save_preset(sound, name)
+        stored = sound.renamed(name)
         self._put(Slot(stored, name, "user", stored, str(path)))
         return str(path)
 

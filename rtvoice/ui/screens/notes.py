@@ -6,7 +6,7 @@ from textual.app import ComposeResult
 from textual.binding import Binding
 from textual.containers import VerticalScroll
 from textual.screen import ModalScreen
-from textual.widgets import Button, Static
+from textual.widgets import Button, Footer, Static
 
 from rtvoice.engine.output import CEILING_DBFS
 from rtvoice.ui.guard import Guarded
@@ -14,9 +14,10 @@ from rtvoice.ui.keyboard import OCTAVE_DOWN, OCTAVE_UP, layout_lines
 
 HELP_KEYS = [
     ("anywhere", [
-        ("ctrl+q", "quit (asks first if a sound is unsaved)"),
+        ("ctrl+q, ctrl+c", "quit (asks first if a sound is unsaved)"),
         ("f1 or ?", "this help"),
-        ("ctrl+o", "presets: load, save as, rename, delete, revert"),
+        ("ctrl+o", "presets: load; in the list ctrl+n save as, ctrl+e rename, ctrl+d delete, "
+                   "ctrl+b back to saved"),
         ("ctrl+s", "save the sound to its user preset"),
         ("ctrl+t", "flip between sound slots A and B"),
         ("ctrl+y", "copy this slot into the other one"),
@@ -44,6 +45,21 @@ HELP_KEYS = [
 ]
 
 
+METER_WORDS = [
+    ("load", "time the audio callback takes, as a share of its block period (median, then p99); "
+             "bold from 70 %"),
+    ("xruns", "blocks the audio server did not get in time; when they climb, the message line says "
+              "whether rtvoice's own callback ran late or the machine held it up"),
+    ("voices", "strings sounding now"),
+    ("peak", "the loudest output sample in dBFS (the ceiling is -1 dBFS)"),
+    ("limit", "how far the limiter turned the output down to hold the ceiling, in dB (0: not at all)"),
+    ("MIDI ◆/◇", "◆ lights for a moment on each MIDI message; the number counts them"),
+    ("kHz, ms", "the sample rate, and the MIDI-to-sound latency with its parts: the engine's block, "
+                "the audio output's own latency and the limiter's look-ahead"),
+    ("MIDI in", "the MIDI inputs open now; audio out: the output and its ports"),
+]
+
+
 def help_text() -> str:
     lines = ["How to play and edit", ""]
     for section, keys in HELP_KEYS:
@@ -53,7 +69,8 @@ def help_text() -> str:
     lines.append("The keyboard rows are four strings a fourth apart; each key is one fret higher:")
     lines += layout_lines()
     lines += ["", "Bars: █ live level of each harmonic of the loudest note;",
-              "      │ what the model predicts at the attack; · predicted below the scale."]
+              "      │ what the model predicts at the attack; · predicted below the scale.", ""]
+    lines += ["The meter lines:"] + [f"  {k:<10} {what}" for k, what in METER_WORDS]
     return "\n".join(lines)
 
 
@@ -69,6 +86,7 @@ class HelpScreen(Guarded, ModalScreen[None]):
         with VerticalScroll(id="help-body"):
             yield Static(help_text(), id="help-text")
             yield Static("escape: close", classes="dim")
+        yield Footer()
 
     def action_close(self) -> None:
         self.dismiss(None)

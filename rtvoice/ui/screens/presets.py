@@ -9,7 +9,7 @@ from textual.app import ComposeResult
 from textual.binding import Binding
 from textual.containers import Horizontal, Vertical
 from textual.screen import ModalScreen
-from textual.widgets import Button, Input, OptionList, Static
+from textual.widgets import Button, Footer, Input, OptionList, Static
 from textual.widgets.option_list import Option
 
 from rtvoice.engine.presets import PresetError, PresetInfo, PresetWarning, read_preset_file
@@ -44,12 +44,14 @@ class PresetScreen(Guarded, ModalScreen[PresetChoice | None]):
     #preset-buttons { height: auto; }
     #preset-buttons Button { min-width: 8; margin-right: 1; }
     """
+    # Control keys, with priority over the filter field (which loses only its ctrl+e "end" and ctrl+d
+    # "delete right"; the End and Delete keys still do those), so typing a filter never triggers them.
     BINDINGS = [
         Binding("escape", "close", "close"),
-        Binding("f2", "choose('save_as')", "save as"),
-        Binding("f3", "choose('rename')", "rename"),
-        Binding("f8", "choose('delete')", "delete"),
-        Binding("f5", "choose('revert')", "revert"),
+        Binding("ctrl+n", "choose('save_as')", "save as new", priority=True),
+        Binding("ctrl+e", "choose('rename')", "rename", priority=True),
+        Binding("ctrl+d", "choose('delete')", "delete", priority=True),
+        Binding("ctrl+b", "choose('revert')", "back to saved", priority=True),
         Binding("down", "move(1)", show=False),
         Binding("up", "move(-1)", show=False),
     ]
@@ -66,11 +68,12 @@ class PresetScreen(Guarded, ModalScreen[PresetChoice | None]):
             yield OptionList(id="preset-list")
             with Horizontal(id="preset-buttons"):
                 yield Button("load ⏎", id="load")
-                yield Button("save as F2", id="save_as")
-                yield Button("rename F3", id="rename")
-                yield Button("delete F8", id="delete")
-                yield Button("revert F5", id="revert")
+                yield Button("save as ^n", id="save_as")
+                yield Button("rename ^e", id="rename")
+                yield Button("delete ^d", id="delete")
+                yield Button("back to saved ^b", id="revert")
             yield Static("", id="preset-note")
+        yield Footer()  # this dialog's keys, not the main screen's
 
     def on_mount(self) -> None:
         self._fill("")
@@ -131,10 +134,20 @@ class PresetScreen(Guarded, ModalScreen[PresetChoice | None]):
 
     def action_choose(self, action: str) -> None:
         info = self.highlighted()
+        note = self.query_one("#preset-note", Static)
         if action in ("load", "rename", "delete") and info is None:
-            self.query_one("#preset-note", Static).update("no preset chosen")
+            note.update("refused: no preset chosen")
+            return
+        if action in ("rename", "delete") and info is not None and info.origin == "factory":
+            # Refused here, and the dialog stays: the next keys must still type, not play notes.
+            note.update(f"refused: {info.name!r} is a factory preset and cannot be {action}d"
+                        + (": save it as a user preset (ctrl+n)" if action == "rename" else ""))
             return
         self.dismiss(PresetChoice(action, info))
+
+    @property
+    def note_text(self) -> str:
+        return str(self.query_one("#preset-note", Static).render())
 
     def action_move(self, step: int) -> None:
         options = self.query_one(OptionList)

@@ -12,7 +12,7 @@ from textual.app import ComposeResult
 from textual.binding import Binding
 from textual.containers import Vertical
 from textual.screen import ModalScreen
-from textual.widgets import Static
+from textual.widgets import Footer, Static
 
 from rtvoice.engine.settings import Settings
 from rtvoice.survey import SurveyPlane, survey_grid
@@ -88,10 +88,10 @@ class SurveyScreen(Guarded, ModalScreen[None]):
     """
     BINDINGS = [
         Binding("escape", "close", "close"),
-        Binding("left", "move(-1, 0)", "pickup -", show=False),
-        Binding("right", "move(1, 0)", "pickup +", show=False),
-        Binding("up", "move(0, -1)", "pluck -", show=False),
-        Binding("down", "move(0, 1)", "pluck +", show=False),
+        Binding("left", "move(-1, 0)", "pickup ←", key_display="←"),
+        Binding("right", "move(1, 0)", "pickup →", key_display="→"),
+        Binding("up", "move(0, -1)", "pluck ↑", key_display="↑"),
+        Binding("down", "move(0, 1)", "pluck ↓", key_display="↓"),
     ]
 
     def __init__(self, settings: Settings, note: int | None = None):
@@ -109,6 +109,7 @@ class SurveyScreen(Guarded, ModalScreen[None]):
         with Vertical(id="survey-box"):
             yield Static(id="survey-map")
             yield Static(id="survey-readout")
+        yield Footer()  # this map's keys, not the main screen's
 
     def on_mount(self) -> None:
         self._draw()

@@ -7,6 +7,7 @@ from textual.widget import Widget
 
 from rtvoice.ui.format import note_name
 from rtvoice.ui.guard import Guarded
+from rtvoice.ui.words import display_name
 
 MODIFIED_MARK = "✱ changed"
 
@@ -37,7 +38,7 @@ class SoundLine(Guarded, Widget):
             text.append(f" {MODIFIED_MARK}", style="bold")
         text.append(f"  slot {f.get('slot', 'A')}")
         if f.get("learning"):  # the learn target matters more than the octave while learning
-            text.append(f"  LEARN {f['learning']}: move a control", style="reverse")
+            text.append(f"  LEARN {display_name(f['learning'])}: move a control", style="reverse")
             return text
         text.append(f"  oct {f.get('octave', 0):+d}")
         note = f.get("note", -1)

@@ -21,6 +21,8 @@ from rtvoice.ui.guard import Guarded
 
 BRIDGE_LABEL, NUT_LABEL = "bridge ", " nut"
 PLUCK_MARK = "▼"
+OTHER_PLUCK_MARK, OTHER_PICKUP_MARK = "▽", "⋮"  # the other A/B slot's pluck and pickups
+OTHER_STYLE = "dim"
 SELECT_STYLE = "reverse bold"
 PICKUP_STYLE = "#70b0c8"
 PLUCK_STYLE = "#e0a040"
@@ -74,6 +76,14 @@ class StringView(Guarded, Widget, can_focus=True):
             super().__init__()
             self.name, self.value = name, value
 
+    class NudgeRequested(Message):
+        """Ask for parameter ``name`` to move by ``delta_mm`` from wherever it is when the app reads
+        this: relative, so every key press counts even when presses come faster than redraws."""
+
+        def __init__(self, name: str, delta_mm: float):
+            super().__init__()
+            self.name, self.delta_mm = name, delta_mm
+
     class Selected(Message):
         """The selected element changed (the app may show or learn its position)."""
 
@@ -84,12 +94,14 @@ class StringView(Guarded, Widget, can_focus=True):
     def __init__(self, settings: Settings, **kwargs):
         super().__init__(**kwargs)
         self.settings = settings
+        self.other: Settings | None = None  # the other A/B slot's sound, drawn faintly where it differs
         self.selected = 0
         self._dragging = False
 
     # -- data in ------------------------------------------------------------------
-    def show_settings(self, settings: Settings) -> None:
+    def show_settings(self, settings: Settings, other: Settings | None = None) -> None:
         self.settings = settings
+        self.other = other
         self.selected = min(self.selected, len(elements_of(settings)) - 1)
         self.refresh()
 
@@ -121,6 +133,7 @@ class StringView(Guarded, Widget, can_focus=True):
         line = list(BRIDGE_LABEL) + ["━"] * (right - left + 1) + list(NUT_LABEL)
         line[left], line[right] = "┣", "┫"
         styles: list[str | None] = [None] * width
+        self._mark_other(marks, left, right)  # first: this slot's own marks go over it
         for i, p in enumerate(s.pickups):
             lo = self.column_of(p["position"] - p["width"] / 2)
             hi = self.column_of(p["position"] + p["width"] / 2)
@@ -130,8 +143,9 @@ class StringView(Guarded, Widget, can_focus=True):
                 styles[c] = PICKUP_STYLE
             centre = min(max(self.column_of(p["position"]), left), right)
             marks[centre] = str(i + 1)
-        pc = min(max(self.column_of(s.get("excitation.position")), left), right)
-        marks[pc] = PLUCK_MARK
+        if not s.get("excitation.shape"):  # a pluck shape replaces the position: no mark for it
+            pc = min(max(self.column_of(s.get("excitation.position")), left), right)
+            marks[pc] = PLUCK_MARK
         sel = self.element
         sel_col = min(max(self.column_of(s.get(sel.position_name)), left), right)
         text = Text(no_wrap=True, overflow="crop")
@@ -139,7 +153,8 @@ class StringView(Guarded, Widget, can_focus=True):
             if ch == " ":
                 text.append(ch)
                 continue
-            style = PLUCK_STYLE if ch == PLUCK_MARK else PICKUP_STYLE
+            style = (PLUCK_STYLE if ch == PLUCK_MARK else OTHER_STYLE if ch in (OTHER_PLUCK_MARK, OTHER_PICKUP_MARK)
+                     else PICKUP_STYLE)
             text.append(ch, style=SELECT_STYLE if c == sel_col else style)
         text.append("\n")
         for c, ch in enumerate(line):
@@ -148,6 +163,18 @@ class StringView(Guarded, Widget, can_focus=True):
         text.append(self._readout())
         return text
 
+    def _mark_other(self, marks: list[str], left: int, right: int) -> None:
+        """The other slot's pluck (▽) and pickup centres (⋮) where they are not where this slot's are."""
+        o = self.other
+        if o is None or o is self.settings:
+            return
+        if o.get("excitation.position") != self.settings.get("excitation.position") and not o.get("excitation.shape"):
+            marks[min(max(self.column_of(o.get("excitation.position")), left), right)] = OTHER_PLUCK_MARK
+        mine = {round(p["position"], 9) for p in self.settings.pickups}
+        for p in o.pickups:
+            if round(p["position"], 9) not in mine:
+                marks[min(max(self.column_of(p["position"]), left), right)] = OTHER_PICKUP_MARK
+
     def _readout(self) -> str:
         """The selected element in full (mm from the bridge and fraction), the others in short."""
         s = self.settings
@@ -155,24 +182,21 @@ class StringView(Guarded, Widget, can_focus=True):
         sel = self.element
         pos, wid = s.get(sel.position_name), s.get(sel.width_name)
         what = "contact" if sel.label == "pluck" else "aperture"
-        text = f"▶{sel.label} {pos * scale:.1f} mm ({pos:.3f}), {what} {wid * scale:.1f} mm"
-        others = [f"{el.label} {s.get(el.position_name) * scale:.0f} mm"
-                  for i, el in enumerate(elements_of(s)) if i != self.selected]
+        shaped = len(s.get("excitation.shape"))
+        if sel.label == "pluck" and shaped:
+            text = f"▶pluck: a shape of {shaped} points (the position is not used)"
+        else:
+            text = f"▶{sel.label} {pos * scale:.1f} mm ({pos:.3f}), {what} {wid * scale:.1f} mm"
+        others = [f"{el.label} {s.get(el.position_name) * scale:.0f} mm" if not (el.label == "pluck" and shaped)
+                  else "pluck: shape" for i, el in enumerate(elements_of(s)) if i != self.selected]
         return "   ".join([text, *others])
 
     # -- keys ---------------------------------------------------------------------
     def action_nudge(self, mm: float) -> None:
-        el = self.element
-        scale = self.settings.get("string.scale_length_mm")
-        value = self.settings.get(el.position_name) + float(mm) / scale
-        value = clamp_to_range(el.position_name, value)
-        self.post_message(self.MoveRequested(el.position_name, value))
+        self.post_message(self.NudgeRequested(self.element.position_name, float(mm)))
 
     def action_widen(self, mm: float) -> None:
-        el = self.element
-        scale = self.settings.get("string.scale_length_mm")
-        value = clamp_to_range(el.width_name, self.settings.get(el.width_name) + float(mm) / scale)
-        self.post_message(self.MoveRequested(el.width_name, value))
+        self.post_message(self.NudgeRequested(self.element.width_name, float(mm)))
 
     def action_select(self, step: int) -> None:
         n = len(elements_of(self.settings))
