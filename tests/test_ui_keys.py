@@ -126,3 +126,26 @@ def test_added_pickups_go_to_distinct_places_not_stacked_on_one_spot():
         places = sorted(p["position"] for p in s.pickups)
         assert min(b - a for a, b in zip(places, places[1:], strict=False)) >= 0.03 - 1e-12, places
         assert s.pickups[0]["position"] == start  # the existing pickup stays where it was
+
+
+def test_a_climbing_xrun_count_is_explained_by_whose_callback_was_late(link):
+    # Xruns cannot be caused on demand here, so the engine's snapshot is given counts: the real
+    # Snapshot type, with only the two counters changed.
+    from dataclasses import replace
+
+    async def body():
+        app = RtvoiceApp(fresh(link), safety_note=False)
+        async with app.run_test(size=(100, 30)) as pilot:
+            await pilot.pause()
+            base = link.snapshot()
+            app._xrun_seen = (base.xruns, base.late, -1.0)  # what the engine counted so far: explained
+            app._explain_xruns(replace(base, xruns=base.xruns + 3, late=base.late + 3))
+            own = app.message_text
+            app.frames += 10 * 30  # ten seconds of UI time later
+            app._explain_xruns(replace(base, xruns=base.xruns + 5, late=base.late + 3))
+            machine = app.message_text
+            return own, machine
+
+    own, machine = run(body())
+    assert "3 more xruns" in own and "overran its period 3 times" in own
+    assert "2 more xruns" in machine and "machine or the audio server" in machine

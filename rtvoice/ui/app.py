@@ -45,7 +45,7 @@ from rtvoice.ui.widgets.params import PICKUP_COUNT, ParamTable
 from rtvoice.ui.widgets.spectrum import SpectrumView
 from rtvoice.ui.widgets.status import MessageLine, SoundLine
 from rtvoice.ui.widgets.string_view import StringView, clamp_to_range
-from rtvoice.ui.words import display_name, said_value
+from rtvoice.ui.words import display_name, said_value, xrun_note
 
 FRAME_RATE_HZ = 30.0
 METER_EVERY = 3  # numbers are read, not watched: 10 updates a second are plenty
@@ -249,13 +249,7 @@ class RtvoiceApp(AppGuard, PresetActions, App[int]):
         now = self.frames / self.frame_rate_hz
         if now - said_at < XRUN_NOTE_EVERY_S and said_at >= 0:
             return  # the count keeps climbing on the meters; the reason is said now and then
-        more, own = xruns - seen_xruns, late - seen_late
-        if own > 0:
-            why = (f"rtvoice's callback overran its period {own} time{'s' if own > 1 else ''}: "
-                   "fewer voices or string modes, or a larger --block, lighten it")
-        else:
-            why = "the callback finished in time: the machine or the audio server held up the audio thread"
-        self.say_error(f"warning: {more} more xrun{'s' if more > 1 else ''} ({xruns} in all); {why}")
+        self.say_error(xrun_note(xruns - seen_xruns, xruns, late - seen_late))
         self._xrun_seen = (xruns, late, now)
 
     def _draw_live(self, snap) -> None:

@@ -29,3 +29,15 @@ def said_value(name: str, value: Any, scale_length_mm: float) -> str:
     if name.endswith((".position", ".width")) and isinstance(value, float):
         return f"{display_name(name)} = {value * scale_length_mm:.1f} mm ({rounded(value)})"
     return f"{display_name(name)} = {rounded(value)}"
+
+
+def xrun_note(more: int, total: int, own_late: int) -> str:
+    """Why the xrun count climbed by ``more``: rtvoice's own callback overran its period
+    (``own_late`` callbacks did, in the same time) or it finished in time and the machine or the
+    audio server held up the audio thread."""
+    if own_late > 0:
+        why = (f"rtvoice's callback overran its period {own_late} time{'s' if own_late > 1 else ''}: "
+               "fewer voices or string modes, or a larger --block, lighten it")
+    else:
+        why = "the callback finished in time: the machine or the audio server held up the audio thread"
+    return f"warning: {more} more xrun{'s' if more > 1 else ''} ({total} in all); {why}"
