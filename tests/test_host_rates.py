@@ -136,3 +136,12 @@ def test_plain_rtvoice_in_a_terminal_plays_at_the_servers_rate_and_shows_it(serv
         assert re.search(r"MIDI to sound \d+\.\d ms", shown), shown
     finally:
         subprocess.run(["tmux", "kill-session", "-t", session], capture_output=True, timeout=10)
+
+
+def test_a_block_unlike_the_servers_period_is_said_at_start(server_44k):
+    proc = subprocess.run([sys.executable, "-m", "rtvoice.cli", "play", "--headless", "--midi-in", "none",
+                           "--block", "512", "--client-name", "rtv44blk", "--duration", "1.5"],
+                          capture_output=True, text=True, env=ENV, timeout=90, check=False)
+    assert proc.returncode == 0, proc.stderr
+    assert "--block 512 differs from the JACK server's 256-frame period" in proc.stderr, proc.stderr
+    assert "11.6 ms blocks on 5.8 ms periods" in proc.stderr  # 512 / 44100 and 256 / 44100 s
