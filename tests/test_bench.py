@@ -123,9 +123,12 @@ def test_modal_baselines_render_the_engine_partials(renders, name):
     assert np.allclose(f_base[sounding], f_engine[sounding], atol=0.01)
     # Same levels to 0.01 dB (the engine keeps its power tables in single precision).
     assert np.allclose(db_base[sounding], db_engine[sounding], atol=0.01)
-    # And sample for sample, to single-precision rounding.
+    # And sample for sample, to single-precision rounding, once the output limiter's fixed delay has
+    # passed: for its first latency_frames the engine's delay line still gives out the note-on block
+    # rendered before the baselines start, the baselines' fresh one silence.
+    d = Engine(simple_note_settings(), FS, BLOCK).stats.latency_frames
     peak = np.max(np.abs(renders["engine"]))
-    assert np.max(np.abs(renders[name] - renders["engine"])) < 1e-4 * peak
+    assert np.max(np.abs(renders[name][d:] - renders["engine"][d:])) < 1e-4 * peak
 
 
 @pytest.mark.parametrize("name", ["resonators", "phasors", "karplus_strong"])

@@ -30,7 +30,14 @@ def clean(**values) -> Settings:
     return Settings.defaults().with_values(base)
 
 
+#: The engine's output is this many frames late (a fixed delay, its limiter's look-ahead, documented
+#: in Engine.stats.latency_frames): a note-on at sample n of a block is heard from sample n + LATENCY
+#: of what Engine.render returns. Offline renders (render_events) take the delay off.
+LATENCY = Engine(clean(), FS, 256).stats.latency_frames
+
+
 def render_note(settings: Settings, note=57, velocity=127, seconds=1.5, block=256) -> np.ndarray:
+    """The note's audio from its note-on (an offline render takes the output's fixed latency off itself)."""
     return render_events(note_events(note, velocity, seconds), settings, FS, block, tail_cap_s=0.0)
 
 
@@ -146,8 +153,9 @@ def test_note_lands_on_its_exact_sample():
     engine = Engine(clean(pickup__0__sensing="displacement"), FS, 256)
     engine.render()
     out = engine.render([(100, 0x90, 60, 100)]).copy()
-    assert np.all(out[:100] == 0.0)
-    assert abs(out[100]) > 1e-3
+    assert out.size > 100 + LATENCY  # the fixed latency keeps the onset in this block
+    assert np.all(out[: 100 + LATENCY] == 0.0)
+    assert abs(out[100 + LATENCY]) > 1e-3
 
 
 def test_note_off_lands_on_its_exact_sample():
@@ -317,7 +325,7 @@ def test_long_sustain_audio_follows_the_double_precision_state():
     pool = engine.pool
     n = np.arange(256)
     expected = np.real((pool.gf[0] * pool.s[0]) @ (pool.p[0][:, None] ** n[None, :]))
-    got = engine.render()
+    got = np.concatenate([engine.render().copy(), engine.render()])[LATENCY : LATENCY + 256]
     assert np.abs(expected).max() > 1e-4  # -60 dB after one T60, as it should be
     np.testing.assert_allclose(got, expected, rtol=0, atol=1e-6 * np.abs(expected).max())
 
@@ -389,7 +397,7 @@ def test_a_live_pluck_change_shapes_the_next_note_and_leaves_the_ringing_one_alo
     first = [engine.render([(0, 0x90, 57, 127)]).copy()]
     engine.set_value("excitation.position", 0.5)
     first += [engine.render().copy() for _ in range(40)]
-    x = np.concatenate(first)[:9600]
+    x = np.concatenate(first)[LATENCY : LATENCY + 9600]
     k = np.arange(1, 25)
     f = 220.0 * k
     c = fit_damped_modes(x, FS, f, damping(f))
@@ -401,7 +409,7 @@ def test_a_live_pluck_change_shapes_the_next_note_and_leaves_the_ringing_one_alo
         engine.render()
     second = np.concatenate([engine.render([(0, 0x90, 45, 127)]).copy()] + [engine.render().copy() for _ in range(40)])
     f = 110.0 * k
-    c = fit_damped_modes(second[:9600], FS, f, damping(f))
+    c = fit_damped_modes(second[LATENCY : LATENCY + 9600], FS, f, damping(f))
     expected = predicted_levels(k, 0.5, 0.15, "displacement")
     audible = expected > expected.max() * 10 ** (-50 / 20)
     assert not audible[1::2].any()  # a pluck at the middle has no even harmonics
@@ -428,3 +436,15 @@ def test_a_dense_block_of_events_renders_as_if_each_had_its_own_block():
         # Later, fading voices retire once under -100 dBFS (RETIRE_LEVEL), checked every 10 ms at a
         # block boundary, so the moment differs with the block size by up to that level.
         np.testing.assert_allclose(y, ref, atol=RETIRE_LEVEL)
+
+
+def test_an_offline_render_is_the_engines_output_with_its_fixed_delay_taken_off():
+    s = clean()
+    events = [(0.0, 0x90, 57, 110), (0.05, 0x80, 57, 0)]
+    offline = render_events(events, s, FS, 256, tail_cap_s=0.2)
+    engine = Engine(s, FS, 256)
+    live = np.concatenate([engine.render([(0, 0x90, 57, 110)]).copy()]
+                          + [engine.render([(2400 - 256 * i, 0x80, 57, 0)] if 256 * i <= 2400 < 256 * (i + 1)
+                                           else []).copy() for i in range(1, offline.size // 256 + 3)])
+    assert LATENCY > 0
+    np.testing.assert_array_equal(offline, live[LATENCY: LATENCY + offline.size])

@@ -59,11 +59,13 @@ def test_learn_maps_the_next_controller_sent_through_the_engine_and_saves_it_wit
             assert isinstance(app.screen, PromptScreen)
             await pilot.press(*"with-cc80", "enter")
             await pilot.pause()
+            await pilot.press("enter")  # the description, as it is
+            await pilot.pause()
             return learning_line, learned, learned_message, table_text, moved, app.string_view.settings
 
     learning_line, learned, message, table, moved, drawn = run(body())
-    assert "LEARN pickup.0.position" in learning_line
-    assert learned and "CC80" in message and "pickup.0.position" in message
+    assert "LEARN pickup 1 position" in learning_line  # pickups counted from 1, as on the string view
+    assert learned and "CC80" in message and "pickup 1 position" in message
     row = next(line for line in table.splitlines() if "position" in line and "pickup 1" in line)
     assert "CC80 ch3" in row
     assert moved and drawn.get("pickup.0.position") == 0.995  # the string is redrawn there too

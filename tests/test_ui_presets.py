@@ -71,6 +71,9 @@ def test_saving_writes_a_whole_new_file_into_the_user_folder_and_renames_it_into
             assert isinstance(app.screen, PromptScreen)
             await pilot.press(*"my-sound", "enter")
             await pilot.pause()
+            assert isinstance(app.screen, PromptScreen)  # its description, prefilled: kept as it is
+            await pilot.press("enter")
+            await pilot.pause()
             first = app.session.settings
             clean_text = screen_text(app)
             await pilot.press("right")  # change again, and save over it (no name asked now)
@@ -115,6 +118,8 @@ def test_a_factory_preset_is_never_overwritten_save_as_offers_a_user_copy(link, 
             still_open = app.screen is prompt
             await pilot.press("home", "ctrl+k", *"hollow-mine", "enter")
             await pilot.pause()
+            await pilot.press("enter")  # the description
+            await pilot.pause()
             return suggested, refused, still_open, app.session.slot
 
     suggested, refused, still_open, slot = run(body())
@@ -132,17 +137,17 @@ def test_rename_and_delete_a_user_preset_with_confirmation(link, home):
         app = RtvoiceApp(fresh(link), safety_note=False)
         async with app.run_test(size=(80, 24)) as pilot:
             await pilot.pause()
-            await pilot.press("ctrl+o", *"first", "f3")  # rename
+            await pilot.press("ctrl+o", *"first", "ctrl+e")  # rename
             assert isinstance(app.screen, PromptScreen)
             await pilot.press("home", "ctrl+k", *"second-take", "enter")
             await pilot.pause()
             renamed = sorted(p.name for p in (home / "presets").iterdir())
             assert presets.load_preset("second-take").get("string.t60_low") == 3.0
-            await pilot.press("ctrl+o", *"second", "f8")  # delete: asks first
+            await pilot.press("ctrl+o", *"second", "ctrl+d")  # delete: asks first
             assert isinstance(app.screen, AskScreen)
             await pilot.press("n")
             kept = (home / "presets" / "second-take.toml").is_file()
-            await pilot.press("ctrl+o", *"second", "f8")
+            await pilot.press("ctrl+o", *"second", "ctrl+d")
             await pilot.press("y")
             await pilot.pause()
             return renamed, kept, app.message_text
@@ -162,7 +167,7 @@ def test_revert_goes_back_to_the_saved_preset_after_asking(link):
             await open_and_load(pilot, app, "hollow")
             await pilot.press("down", "shift+right")
             changed = app.session.settings.get("pickup.0.position")
-            await pilot.press("ctrl+o", "f5")
+            await pilot.press("ctrl+o", "ctrl+b")  # back to the saved preset
             asked = isinstance(app.screen, AskScreen)
             await pilot.press("y")
             await pilot.pause()

@@ -173,4 +173,17 @@ def render_text(r: dict) -> str:
     else:
         out.append(f"- not measured: {rt['reason']}")
     out += _profile_text(r)
+    out += _limiter_text(r)
     return "\n".join(out) + "\n"
+
+
+def _limiter_text(r: dict) -> list[str]:
+    lim = r.get("limiter")
+    if not lim:
+        return []
+    return ["", "## Output limiter (true peak, look-ahead)", "",
+            f"- {lim['block']} frames: quiet block {lim['quiet_median_us']:.1f} us (p99 {lim['quiet_p99_us']:.1f}), "
+            f"near the ceiling {lim['near_ceiling_median_us']:.1f} us (p99 {lim['near_ceiling_p99_us']:.1f}), "
+            f"limiting {lim['limiting_median_us']:.1f} us (p99 {lim['limiting_p99_us']:.1f}; "
+            f"{lim['limiting_gain_reduction_db']:.1f} dB of reduction) per block, medians; added latency "
+            f"{lim['latency_ms']:.2f} ms ({lim['latency_frames']} frames at {r['sample_rate_hz']} Hz)"]

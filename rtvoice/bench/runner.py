@@ -111,6 +111,8 @@ def run(plan: Plan, progress: Callable[[str], None] | None = None) -> dict:
                                                        blocks=min(plan.repeats, 200)),
         "efficiency_cell": profile.stage_split(32, 128, TARGET_BLOCK, ramps=False, blocks=plan.repeats),
     }
+    say("output limiter")
+    result["limiter"] = profile.limiter_cost(TARGET_BLOCK, max(200, plan.repeats * 5))
 
     say("memory per voice")
     result["memory"] = [memory_per_voice(m) for m in plan.memory_modes]

@@ -211,6 +211,7 @@ class EngineHost:
             "type": "ready", "audio_port": self.route.label, "audio_ports": self.route.ports,
             "midi_ports": self.midi.names(), "notes": list(self.notes), "rate": self.rate, "block": self.block,
             "server_period": self.server_period,
+            "lookahead_s": getattr(self.engine.stats, "latency_frames", 0) / self.rate,  # the limiter's delay
             "latency_s": getattr(self.route.output, "latency_s", 0.0), "pid": os.getpid(),
             "cpu_wakeup": self.cpu_wakeup, "heap_frozen": self.heap_frozen,
             "heap_walked": heap.full_collection_objects(),

@@ -35,12 +35,15 @@ def iter_blocks(
 ) -> Iterator[np.ndarray]:
     """Blocks of ``events`` (time_s, status, data1, data2) played through a new engine.
 
-    Each event lands on its own sample. After the last event the tail rings until
+    Each event lands on its own sample: the engine's fixed output delay (its limiter's
+    look-ahead) is taken off the front and rendered on at the end, so a file does not
+    start late the way a live stream must. After the last event the tail rings until
     every voice has retired (below -100 dBFS) or ``tail_cap_s`` has passed. Each
-    yielded block is a view of the engine's buffer, valid until the next one: memory
-    stays one block however long the piece is.
+    yielded block is a view of the engine's buffer, valid until the next one (the first
+    and last may be shorter than a block): memory stays one block however long the piece is.
     """
     engine = Engine(settings, sample_rate_hz, block_frames)
+    skip = flush = int(engine.stats.latency_frames)
     fs, n = engine.fs, engine.block
     ordered = sorted(events, key=lambda e: e[0])
     stamps = np.array([round(t * fs) for t, *_ in ordered], dtype=np.int64)
@@ -55,13 +58,23 @@ def iter_blocks(
             _, status, d1, d2 = ordered[i]
             batch.append((int(stamps[i] - start), status, d1, d2))
             i += 1
-        yield engine.render(batch)
+        out = engine.render(batch)
+        if skip:
+            taken = min(skip, out.size)
+            skip -= taken
+            out = out[taken:]
+        if out.size:
+            yield out
         start = end
         count += 1
         if progress and count % 200 == 0:
             progress(min(start / total_guess, 0.99))
         if i >= len(ordered) and (engine.pool.n_active == 0 or start >= cap_end):
             break
+    while flush > 0:  # what the delay still holds
+        out = engine.render([])[:flush]
+        flush -= out.size
+        yield out
     if progress:
         progress(1.0)
 

@@ -81,13 +81,14 @@ def render_note(
     """(samples over the window, whether the limiter acted) of one held full-velocity note."""
     engine = Engine(settings, sample_rate_hz, block_frames)
     n = int(round(window_s * engine.fs))
-    out = np.empty(-(-n // engine.block) * engine.block)
+    skip = engine.stats.latency_frames  # the output's fixed delay: the window starts at the note-on
+    out = np.empty(-(-(n + skip) // engine.block) * engine.block)
     limited = False
     for i in range(out.size // engine.block):
         events = [(0, midi.NOTE_ON, note, 127)] if i == 0 else ()
         out[i * engine.block : (i + 1) * engine.block] = engine.render(events)
         limited = limited or engine.stats.gain_reduction_db > 0.0 or engine.stats.clipped > 0
-    return out[:n], limited
+    return out[skip : skip + n], limited
 
 
 def measure_energies(

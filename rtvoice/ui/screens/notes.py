@@ -16,12 +16,11 @@ HELP_KEYS = [
     ("anywhere", [
         ("ctrl+q, ctrl+c", "quit (asks first if a sound is unsaved)"),
         ("f1 or ?", "this help"),
-        ("ctrl+o", "presets: load; in the list ctrl+n save as, ctrl+e rename, ctrl+d delete, "
-                   "ctrl+b back to saved"),
+        ("ctrl+o", "presets (in the list: ^n save as, ^e rename, ^d delete, ^b back to saved)"),
         ("ctrl+s", "save the sound to its user preset"),
         ("ctrl+t", "flip between sound slots A and B"),
         ("ctrl+y", "copy this slot into the other one"),
-        ("ctrl+g", "switch the top view: harmonics / output spectrum"),
+        ("ctrl+g", "switch the top view: harmonics / output spectrum / A/B of the two slots"),
         ("ctrl+l", "learn: the next control moved drives the chosen parameter"),
         ("ctrl+r", "restart the engine if it stopped"),
         ("f2", "brightness map over pickup and pluck positions; arrows move the live sound"),
@@ -40,7 +39,7 @@ HELP_KEYS = [
     ("in the parameter list", [
         ("up / down", "choose a parameter"),
         ("left / right", "step it down / up (shift: finer)"),
-        ("enter", "type a value (positions and widths also take mm, like 120mm)"),
+        ("enter", "type a value (lengths also take mm, cm or in, like 120mm)"),
     ]),
 ]
 
@@ -61,14 +60,16 @@ METER_WORDS = [
 
 
 def help_text() -> str:
+    """Playing first (with the keyboard rows), then the keys of each place, the bars and the meters."""
     lines = ["How to play and edit", ""]
-    for section, keys in HELP_KEYS:
+    for section, keys in sorted(HELP_KEYS, key=lambda item: item[0] != "playing"):
         lines.append(f"{section}:")
         lines += [f"  {k:<16} {what}" for k, what in keys]
+        if section == "playing":
+            lines.append("  The keyboard rows are four strings a fourth apart; each key is one fret higher:")
+            lines += [f"  {row}" for row in layout_lines()]
         lines.append("")
-    lines.append("The keyboard rows are four strings a fourth apart; each key is one fret higher:")
-    lines += layout_lines()
-    lines += ["", "Bars: █ live level of each harmonic of the loudest note;",
+    lines += ["Bars: █ live level of each harmonic of the loudest note;",
               "      │ what the model predicts at the attack; · predicted below the scale.", ""]
     lines += ["The meter lines:"] + [f"  {k:<10} {what}" for k, what in METER_WORDS]
     return "\n".join(lines)
@@ -95,8 +96,9 @@ class HelpScreen(Guarded, ModalScreen[None]):
 SAFETY_TEXT = (
     "Before you play: protect your hearing.\n\n"
     "Start with your amplifier or headphones turned down and raise the level slowly. "
-    f"rtvoice never sends more than {CEILING_DBFS:.0f} dBFS (its limiter holds the output "
-    "there), but what that means in your ears depends on everything after the computer. "
+    f"rtvoice never sends more than {CEILING_DBFS:.0f} dBFS (its limiter holds every sample "
+    f"there, and the waveform between the samples at {CEILING_DBFS:.0f} dBTP), but what that means "
+    "in your ears depends on everything after the computer. "
     "Long sessions at high level damage hearing for good; take breaks.\n\n"
     "This note is shown once."
 )

@@ -23,10 +23,11 @@ def load_percent(value: float) -> str:
 
 
 class Meters(Guarded, Widget):
-    """Two lines of numbers, each with its name, so nothing depends on colour."""
+    """Three lines of numbers, each with its name, so nothing depends on colour: the live meters,
+    the ports, and the rate with the MIDI-to-sound latency."""
 
     DEFAULT_CSS = """
-    Meters { height: 2; }
+    Meters { height: 3; }
     """
 
     def __init__(self, **kwargs):
@@ -66,8 +67,7 @@ class Meters(Guarded, Widget):
             f"limit -{abs(s.gain_reduction_db):.1f} dB  MIDI {midi_mark}{s.midi_events}"
         )
         ports = ", ".join(s.midi_ports) if s.midi_ports else "none"
-        facts = f"{self.facts}   " if self.facts else ""  # first: the port names are long
-        second = f"{facts}MIDI in: {ports}   audio out: {s.audio_port or 'none'}"
+        second = f"MIDI in: {ports}   audio out: {s.audio_port or 'none'}"
         return first, second
 
     def render(self) -> Text:
@@ -78,4 +78,6 @@ class Meters(Guarded, Widget):
         text.append(first, style="bold" if hot else "")
         text.append("\n")
         text.append(second, style="dim")
+        text.append("\n")
+        text.append(self.facts, style="dim")  # rate and latency: the same while the engine runs
         return text
