@@ -23,7 +23,6 @@ from rtvoice.engine.controls import (
 )
 from rtvoice.engine.renderer import Engine
 from rtvoice.engine.settings import Settings, SettingsError
-from rtvoice.host.routing import ControlRouter
 from rtvoice.physics.pickup import aperture_weights
 
 
@@ -210,15 +209,13 @@ def test_mpe_per_note_timbre_sets_each_notes_pluck_position():
     Here it sets where the string is plucked; a pluck at 1/n of the length leaves out every
     n-th harmonic (Fletcher & Rossing 1998, ch. 2: a_k ~ sin(k pi p))."""
     settings = _quiet_settings()
-    engine = Engine(settings, FS, BLOCK)
-    router = ControlRouter(engine, ControlMap([{"target": "excitation.position", "source": "note_timbre",
-                                                "low": 0.1, "high": 0.5}]))
+    engine = Engine(settings, FS, BLOCK)  # the engine's own controller map, set to one MPE entry
+    engine.controls.set_entries([{"target": "excitation.position", "source": "note_timbre", "low": 0.1, "high": 0.5}])
     # lower zone with 15 members (MPE configuration message, RPN 6 on the master channel)
     mpe = [(0, 0xB0, 101, 0), (0, 0xB0, 100, 6), (0, 0xB0, 6, 15)]
     # channel 2: CC74 = 127 -> position 0.5 (even harmonics vanish); channel 3: CC74 = 0 -> 0.1
     notes = [(1, 0xB1, 74, 127), (2, 0x91, 45, 100), (3, 0xB2, 74, 0), (4, 0x92, 57, 100)]
     engine.render(mpe + notes)
-    router.after_block(0.0)
     pool = engine.pool
     slot = {int(pool.note[v]): v for v in range(pool.n_active)}
     k = np.arange(1, 7)
@@ -236,17 +233,14 @@ def test_controller_moves_the_pickup_of_a_ringing_note_as_the_model_predicts():
     Valimaki, JAES 60(10) 2012); with equal T60 at all frequencies all harmonics decay alike,
     so harmonic ratios before/after the move follow the weights alone."""
     settings = _quiet_settings()
-    engine = Engine(settings, FS, BLOCK)
-    router = ControlRouter(engine, ControlMap())
+    engine = Engine(settings, FS, BLOCK)  # the default controller map: CC1/33 moves pickup 1
     entry = _entry_for(1)
     engine.render([(0, 0xB0, 1, 0), (1, 0x90, 45, 100)])
-    router.after_block(0.0)
     for _ in range(40):
         engine.render()
     before = engine.mode_levels(0)[:6].copy()
     x_before = engine.settings.get("pickup.0.position")
     engine.render([(0, 0xB0, 1, 100), (0, 0xB0, 33, 0)])
-    router.after_block(1.0)
     for _ in range(60):  # 0.3 s: the 15 ms smoothing has long settled
         engine.render()
     after = engine.mode_levels(0)[:6]
@@ -280,14 +274,12 @@ def test_controller_sweep_adds_no_broadband_clicks():
     step_blocks = [int((0.25 + i / len(steps)) * FS / BLOCK) for i in range(len(steps))]
     entry = _entry_for(1)
 
-    engine = Engine(settings, FS, BLOCK)
-    router = ControlRouter(engine, ControlMap())
+    engine = Engine(settings, FS, BLOCK)  # its own controller map moves the pickup
     swept = []
     for b in range(n_blocks):
         events = [(0, 0xB0, 1, 0), (1, 0x90, 45, 100)] if b == 0 else []
         events += [(0, 0xB0, 1, v) for sb, v in zip(step_blocks, steps, strict=True) if sb == b]
         swept.append(engine.render(events).copy())
-        router.after_block(b * BLOCK / FS)
     swept = np.concatenate(swept)
 
     def held(cc_value: int) -> np.ndarray:

@@ -24,12 +24,16 @@ so no block is filtered (the same output as filtering the samples).
 from __future__ import annotations
 
 import math
+from collections import deque
 from collections.abc import Iterable
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
 from rtvoice.engine import midi
+from rtvoice.engine.control_router import ControlRouter
+from rtvoice.engine.controls import ControlMap, default_entries
 from rtvoice.engine.live_modes import LiveProduct
 from rtvoice.engine.modal_filter import ModalFilter
 from rtvoice.engine.note_starts import NoteStarts
@@ -95,9 +99,11 @@ class Engine:
         self.settings = settings or Settings.defaults()
         self.channels = midi.ChannelState()
         self.stats = EngineStats()
-        self.controller_hook = None  # callable(channel, cc, value) for CCs the engine does not own
-        self.pressure_hook = None  # callable(channel, value01)
-        self.excitation_hook = None  # callable(channel) -> initial mode amplitudes for a note there, or None
+        # The sound's controller map acts here, so it acts alike live, offline and in the soak. What a
+        # host must hear of (learned mappings, refused changes, moved values) waits in ``messages``.
+        self.messages: deque[dict[str, Any]] = deque()
+        self.controls = ControlMap(self.settings.controls)
+        self.router = ControlRouter(self, self.controls, self.messages)
         self._alpha = 1.0 - math.exp(-self.block / (SMOOTHING_S * self.fs))
         self._order = 0
         self._retire_every = max(1, round(RETIRE_CHECK_S * self.fs / self.block))  # blocks
@@ -288,6 +294,11 @@ class Engine:
             self._prepare_electronics()
         self._gain_target = 10 ** (settings.get("output.gain_db") / 20)
 
+    def load_sound(self, settings: Settings) -> None:
+        """Play a whole sound: its settings and its controller map (the default map when it has none)."""
+        self.apply_settings(settings)
+        self.controls.set_entries(default_entries() if settings.controls is None else settings.controls)
+
     def set_value(self, name: str, value) -> None:
         """Change one parameter by its canonical name (validated)."""
         self.apply_settings(self.settings.with_values({name: value}))
@@ -321,6 +332,8 @@ class Engine:
             self._apply_bends()
         out = self._finish()
         self._retire()
+        if self.router.pending:  # controllers moved in this block: the next ones hear the change
+            self.router.after_block(self.stats.blocks * self.block / self.fs)
         return out
 
     def _render_bulk(self, ramping: bool) -> None:
@@ -543,8 +556,7 @@ class Engine:
             self._bend_dirty = True
         elif kind == midi.CHANNEL_PRESSURE:
             self.channels.pressure[ch] = (d1 & 0x7F) / 127.0
-            if self.pressure_hook:
-                self.pressure_hook(ch, self.channels.pressure[ch])
+            self.router.on_pressure(ch, self.channels.pressure[ch])
 
     def _note_on(self, at: int, ch: int, note: int, velocity: int) -> None:
         if self._pending_rebuild is not None:
@@ -576,7 +588,7 @@ class Engine:
         pool.channel[v] = ch
         self._order += 1
         pool.order[v] = self._order
-        initial = self.excitation_hook(ch) if self.excitation_hook is not None else None
+        initial = self.router.note_excitation(ch)
         pool.level[v] = self._start_bound(velocity, initial)  # its level is not set up yet
         self._changes.append((v, at, START, (ch, note, velocity, initial, fresh)))
 
@@ -710,8 +722,7 @@ class Engine:
         else:
             if cc == midi.CC_TIMBRE:
                 chan.timbre[ch] = value / 127.0
-            if self.controller_hook:
-                self.controller_hook(ch, cc, value)
+            self.router.on_cc(ch, cc, value)
 
     def _apply_bends(self) -> None:
         """Retune ringing voices to their channel's bend (takes effect at the block boundary)."""

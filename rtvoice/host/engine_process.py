@@ -25,7 +25,6 @@ from operator import itemgetter  # noqa: E402
 import numpy as np  # noqa: E402
 
 from rtvoice.engine import midi  # noqa: E402
-from rtvoice.engine.controls import ControlMap, default_entries  # noqa: E402
 from rtvoice.engine.renderer import Engine  # noqa: E402
 from rtvoice.engine.settings import SettingsError  # noqa: E402
 from rtvoice.host import cpu_wakeup, heap  # noqa: E402
@@ -40,7 +39,6 @@ from rtvoice.host.rates import block_note, choose_rate  # noqa: E402
 from rtvoice.host.recorder import Recorder  # noqa: E402
 from rtvoice.host.ring import SampleRing  # noqa: E402
 from rtvoice.host.route import AudioRoute  # noqa: E402
-from rtvoice.host.routing import ControlRouter  # noqa: E402
 from rtvoice.host.timing import BlockClock  # noqa: E402
 
 SWITCH_INTERVAL_S = 0.0005  # let the callback thread take the interpreter lock quickly
@@ -49,7 +47,6 @@ FADE_OUT_S = 0.08  # stop without a click
 PUBLISH_EVERY_S = 1 / 30
 SCAN_EVERY_S = 1.0
 HEALTH_EVERY_S = 0.25
-CONTROL_EVERY_S = 0.004  # controller changes are applied at most this often (the engine smooths them)
 RING_S = 10.0
 STOP_TIMEOUT_S = 1.5
 GAP_NEED_S, GAP_POLL_S, GAP_TRIES = 0.0003, 0.0002, 40
@@ -134,8 +131,7 @@ class EngineHost:
             self.engine = Engine(config["settings"], self.rate, self.block)
         except ValueError as err:
             raise HostError(str(err)) from None
-        settings = self.engine.settings
-        self.controls = ControlMap(settings.controls)
+        self.controls = self.engine.controls  # the sound's controller map acts inside the engine
         self.board = Board.attach(config["board"])
         self.clock = BlockClock(self.block, self.rate)
         self.ring = SampleRing(int(RING_S * self.rate))
@@ -145,8 +141,7 @@ class EngineHost:
         # Hand-over between threads.
         self._inbox: deque = deque()  # commands for the callback
         self._midi_in: deque = deque()  # (arrival_s, status, d1, d2) from the UI
-        self._outbox: deque = deque()  # messages from the callback
-        self.router = ControlRouter(self.engine, self.controls, self._outbox, CONTROL_EVERY_S)
+        self._outbox: deque = self.engine.messages  # messages from the callback (the engine's, and ours)
         # Callback state, preallocated.
         self._raw: list = []
         self._events: list = []
@@ -280,7 +275,6 @@ class EngineHost:
         took = time.perf_counter() - t_render
         self.guard.learn(took)
         self.render_load.add(took)
-        self.router.after_block(now)
         steady = self._apply_gain(y)
         if out is not None:
             if out.shape[1] == 1:
@@ -338,8 +332,7 @@ class EngineHost:
                     engine.apply_settings(engine.settings.with_values({cmd[1]: cmd[2]}, source="set_value"))
                 elif kind == "load":
                     settings = cmd[1]
-                    engine.apply_settings(settings)
-                    self.controls.set_entries(default_entries() if settings.controls is None else settings.controls)
+                    engine.load_sound(settings)
                     self._outbox.append({"type": "controls"})
                 elif kind == "learn":
                     self.controls.learn(cmd[1])

@@ -17,7 +17,6 @@ from dataclasses import asdict, dataclass, field
 
 import numpy as np
 
-from rtvoice.engine.controls import ControlMap
 from rtvoice.engine.output import CEILING
 from rtvoice.engine.presets import list_presets, load_preset
 from rtvoice.engine.renderer import Engine
@@ -144,6 +143,16 @@ def _random_live(rng: np.random.Generator, s: Settings) -> Settings:
         return s
 
 
+def _moved_values(engine: Engine) -> dict[str, object]:
+    """The values the engine's controller map changed since the last call (its ``values`` messages)."""
+    moved: dict[str, object] = {}
+    while engine.messages:
+        msg = engine.messages.popleft()
+        if msg.get("type") == "values":
+            moved.update(msg["values"])
+    return moved
+
+
 def run_offline(config: OfflineConfig | None = None, progress=None) -> OfflineResult:
     """Render the soak; ``progress(done_fraction)`` is called about once a second of wall time."""
     cfg = config or OfflineConfig()
@@ -155,10 +164,6 @@ def run_offline(config: OfflineConfig | None = None, progress=None) -> OfflineRe
     traffic_settings = Settings.defaults().with_values({"voices": voices, "string.modes": modes})
     presets = _factory_presets(voices, modes)
     engine = Engine(traffic_settings, fs, n_blk)
-    cmap = ControlMap()
-    pending: list[tuple[str, object]] = []
-    engine.controller_hook = lambda ch, cc, v: pending.extend(cmap.control_change(ch, cc, v))
-    engine.pressure_hook = lambda ch, x: pending.extend(cmap.pressure(ch, x))
     traffic, held = RandomTraffic(rng, fs, n_blk), HeldNote(fs, n_blk)
     seg_blocks = max(2, round(cfg.segment_s * fs / n_blk))
     check_blocks = max(1, round(cfg.check_every_s * fs / n_blk))
@@ -208,13 +213,13 @@ def run_offline(config: OfflineConfig | None = None, progress=None) -> OfflineRe
             traffic_settings = _random_live(rng, presets[int(rng.integers(0, len(presets)))])
             res.preset_changes += 1
             changed = True
-        if pending:
+        moved = _moved_values(engine)  # the engine's controller map acted on the traffic's controllers
+        if moved:
             try:
-                traffic_settings = traffic_settings.with_values(dict(pending))
-                res.cc_changes += len(pending)
+                traffic_settings = traffic_settings.with_values(moved)  # kept over later preset changes
+                res.cc_changes += len(moved)
             except SettingsError:
-                pass  # a pair the cross-checks refuse (e.g. t60 order): the host drops it too
-            pending.clear()
+                pass  # a pair the cross-checks refuse (e.g. t60 order): the engine refused it too
             changed = True
         if changed:
             engine.apply_settings(traffic_settings)

@@ -1,20 +1,30 @@
-"""Controllers to parameters: the engine's hooks, through a ControlMap, into the engine.
+"""Controllers to parameters inside the engine: MIDI control changes, channel pressure and MPE
+per-note values, through the sound's controller map (:class:`~rtvoice.engine.controls.ControlMap`).
 
-The engine calls its hooks inside ``render()`` in event order. Changes are
-collected and applied at most every ``every_s`` seconds, after a block, as one
-new Settings: live parameters (pickups, gain, electronics) then glide on the
-ringing notes through the engine's own smoothing, so a controller sweep does not
-zipper; the others act on the next note. Per-note MPE values set the excitation
-of each note as it starts (cached, as 7-bit controllers repeat values).
+The engine owns one router, so a controller map acts the same wherever the engine runs:
+live in the host, offline in ``rtvoice render``, in the soak and the survey's checks.
+The engine hands it every controller it does not own itself (sustain, RPN, all-notes-off
+stay the engine's) in event order. Changes are collected and applied at most every
+``every_s`` seconds of the engine's own sample clock, after a block, as one new Settings:
+live parameters (pickups, gain, electronics) then glide on the ringing notes through the
+engine's own smoothing, so a controller sweep does not zipper; the others act on the next
+note. Per-note MPE values set the excitation of each note as it starts (cached, as 7-bit
+controllers repeat values). What a host must hear of (a learned mapping, a refused change,
+the values that moved) goes into ``outbox`` as small dicts.
 """
 
 from __future__ import annotations
 
 from collections import deque
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
 
 from rtvoice.engine.controls import ControlMap
-from rtvoice.engine.renderer import Engine
 from rtvoice.engine.settings import SettingsError
+
+if TYPE_CHECKING:  # the engine imports this module; the router only calls it back
+    from rtvoice.engine.renderer import Engine
 
 APPLY_EVERY_S = 0.004
 EXCITATION_CACHE = 512
@@ -25,21 +35,18 @@ class ControlRouter:
                  every_s: float = APPLY_EVERY_S):
         self.engine = engine
         self.controls = controls
-        self.outbox = outbox if outbox is not None else deque()
+        self.outbox: deque[dict[str, Any]] = outbox if outbox is not None else deque()
         self.every_s = every_s
-        self.pending: dict = {}
+        self.pending: dict[str, Any] = {}
         self._last = -1e9
-        self._cache: dict = {}
-        self._cache_settings = None
+        self._cache: dict[tuple[float, float], np.ndarray] = {}
+        self._cache_settings: object = None
         self._reported: set[str] = set()
-        engine.controller_hook = self._on_cc
-        engine.pressure_hook = self._on_pressure
-        engine.excitation_hook = self._note_excitation
 
     def _member(self, channel: int) -> bool:
         return self.engine.channels.zone_master(channel) is not None
 
-    def _on_cc(self, channel: int, cc: int, value: int) -> None:
+    def on_cc(self, channel: int, cc: int, value: int) -> None:
         changes = self.controls.control_change(channel, cc, value, self._member(channel))
         if self.controls.learned is not None:
             entry, self.controls.learned = self.controls.learned, None
@@ -48,11 +55,12 @@ class ControlRouter:
         for name, v in changes:
             self.pending[name] = v
 
-    def _on_pressure(self, channel: int, value01: float) -> None:
+    def on_pressure(self, channel: int, value01: float) -> None:
         for name, v in self.controls.pressure(channel, value01, self._member(channel)):
             self.pending[name] = v
 
-    def _note_excitation(self, channel: int):
+    def note_excitation(self, channel: int) -> np.ndarray | None:
+        """Initial mode amplitudes for a note starting on ``channel`` from its MPE values, or None."""
         if not self._member(channel):
             return None
         values = self.controls.note_values(channel)
@@ -73,7 +81,8 @@ class ControlRouter:
         return initial
 
     def after_block(self, now_s: float) -> None:
-        """Apply the collected changes when ``every_s`` has passed since the last time."""
+        """Apply the collected changes when ``every_s`` has passed since the last time (``now_s``:
+        the engine's sample clock, so a render offline moves exactly as the same MIDI does live)."""
         if self.pending and now_s - self._last >= self.every_s:
             self._last = now_s
             self.apply_pending()
