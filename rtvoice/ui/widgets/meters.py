@@ -72,12 +72,18 @@ class Meters(Guarded, Widget):
 
     def render(self) -> Text:
         first, second = self._line
+        width = max(1, self.size.width)
         text = Text(no_wrap=True, overflow="ellipsis")
         s = self.snapshot
         hot = s is not None and (s.load_p99 or 0) >= WARN_LOAD
-        text.append(first, style="bold" if hot else "")
+        # Each line is cut to the width here: a long port name must not wrap onto the next line.
+        text.append(_fit(first, width), style="bold" if hot else "")
         text.append("\n")
-        text.append(second, style="dim")
+        text.append(_fit(second, width), style="dim")
         text.append("\n")
-        text.append(self.facts, style="dim")  # rate and latency: the same while the engine runs
+        text.append(_fit(self.facts, width), style="dim")  # rate and latency: the same while the engine runs
         return text
+
+
+def _fit(line: str, width: int) -> str:
+    return line if len(line) <= width else line[: width - 1] + "…"
