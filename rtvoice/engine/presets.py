@@ -40,6 +40,7 @@ from pathlib import Path
 import tomli_w
 
 from rtvoice.engine.settings import PRESET_FORMAT, Settings, SettingsError
+from rtvoice.errors import UserError
 
 try:
     import fcntl
@@ -51,8 +52,8 @@ NAME_PATTERN = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_-]{0,63}$")
 FACTORY_DIR = Path(__file__).resolve().parents[2] / "presets"
 
 
-class PresetError(ValueError):
-    """A preset that cannot be read or written, with the reason in plain words."""
+class PresetError(UserError, ValueError):
+    """A preset that cannot be read or written, with the reason in plain words (``source``: the file)."""
 
 
 class PresetWarning(UserWarning):
@@ -105,7 +106,7 @@ def find_preset(name_or_path: str) -> PresetInfo:
     if os.sep in name_or_path or "/" in name_or_path or name_or_path.endswith(".toml"):
         path = Path(name_or_path)
         if not path.is_file():
-            raise PresetError(f"{name_or_path}: no such preset file")
+            raise PresetError("no such preset file", source=name_or_path)
         return PresetInfo(path.stem, "file", path)
     check_name(name_or_path)
     for origin, folder in (("user", user_dir()), ("factory", FACTORY_DIR)):
@@ -125,24 +126,24 @@ def read_preset_file(path: Path | str) -> Settings:
     try:
         size = path.stat().st_size
         if size > MAX_PRESET_BYTES:
-            raise PresetError(f"{path}: {size} bytes is larger than a preset can be ({MAX_PRESET_BYTES})")
+            raise PresetError(f"{size} bytes is larger than a preset can be ({MAX_PRESET_BYTES})", source=str(path))
         with open(path, "rb") as fh:
             raw = fh.read(MAX_PRESET_BYTES + 1)  # the file may grow between stat and read
     except OSError as err:
-        raise PresetError(f"{path}: cannot read ({err.strerror or err})") from None
+        raise PresetError(f"cannot read ({err.strerror or err})", source=str(path)) from None
     return preset_from_bytes(raw, str(path), default_name=path.stem)
 
 
 def preset_from_bytes(raw: bytes, source: str, default_name: str = "") -> Settings:
     """Validate the bytes of a preset file (named ``source`` in messages); see :func:`read_preset_file`."""
     if len(raw) > MAX_PRESET_BYTES:
-        raise PresetError(f"{source}: larger than a preset can be ({MAX_PRESET_BYTES} bytes)")
+        raise PresetError(f"larger than a preset can be ({MAX_PRESET_BYTES} bytes)", source=source)
     try:
         text = raw.decode("utf-8-sig")  # some editors start UTF-8 files with a byte-order mark
     except UnicodeDecodeError:
-        raise PresetError(f"{source}: not a text file (preset files are UTF-8 TOML)") from None
+        raise PresetError("not a text file (preset files are UTF-8 TOML)", source=source) from None
     if not text.strip():
-        raise PresetError(f"{source}: empty file")
+        raise PresetError("empty file", source=source)
     ignored: list[str] = []
     settings = Settings.from_toml_text(text, source=source, ignored=ignored)
     if ignored:

@@ -8,13 +8,29 @@ a one-line help. Pickups are a list: their fields are addressed as
 
 from __future__ import annotations
 
+import difflib
 import math
 import re
 from dataclasses import dataclass, field
 from typing import Any
 
+from rtvoice.errors import UserError
+
 MAX_PICKUPS = 4
 MAX_SHAPE_POINTS = 64
+SUGGEST_CUTOFF = 0.75  # difflib ratio: "inharmonicty" -> "inharmonicity" (0.97), not "colour" -> "t60_low"
+
+
+class UnknownParameter(UserError, KeyError):
+    """A parameter name the schema does not have (a KeyError too, for code that looks names up).
+
+    ``name`` is the name asked for, ``reason`` says what is wrong with it and
+    ``suggestion`` is the closest real name ('' when none is close).
+    """
+
+    def __init__(self, name: str, reason: str, *, shown_name: bool = False):
+        self.name = name
+        super().__init__(reason, key=name if shown_name else "", suggestion=closest_name(name))
 
 
 @dataclass(frozen=True)
@@ -172,16 +188,27 @@ _PICKUP_NAME = re.compile(r"^pickup\.(\d+)\.([a-z_0-9]+)$")
 
 
 def lookup(name: str) -> tuple[Param, int | None]:
-    """(Param, pickup index or None) for a canonical dotted name; KeyError if unknown."""
+    """(Param, pickup index or None) for a canonical dotted name; :class:`UnknownParameter` if unknown."""
     if name in PARAMS:
         return PARAMS[name], None
     m = _PICKUP_NAME.match(name)
     if m and m.group(2) in PICKUP_FIELDS:
         index = int(m.group(1))
         if index >= MAX_PICKUPS:
-            raise KeyError(f"{name}: at most {MAX_PICKUPS} pickups (index 0..{MAX_PICKUPS - 1})")
+            raise UnknownParameter(name, f"at most {MAX_PICKUPS} pickups (index 0..{MAX_PICKUPS - 1})",
+                                   shown_name=True)
         return PICKUP_FIELDS[m.group(2)], index
-    raise KeyError(f"unknown parameter {name!r}")
+    raise UnknownParameter(name, f"unknown parameter {name!r}")
+
+
+def closest_name(name: str) -> str:
+    """The real parameter name closest to a mistyped ``name`` ('' when none is close)."""
+    names = all_names(1)
+    index = re.search(r"\.(\d+)\.", name)
+    if index and int(index.group(1)) < MAX_PICKUPS:  # keep the pickup the name meant
+        names = [n.replace("pickup.0.", f"pickup.{index.group(1)}.") for n in names]
+    close = difflib.get_close_matches(name, names, n=1, cutoff=SUGGEST_CUTOFF)
+    return close[0] if close else ""
 
 
 def all_names(n_pickups: int) -> list[str]:

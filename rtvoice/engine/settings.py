@@ -9,9 +9,7 @@ allowed; nothing partial is ever returned.
 
 from __future__ import annotations
 
-import difflib
 import math
-import re
 import tomllib
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, replace
@@ -22,12 +20,15 @@ from rtvoice.engine.schema import (
     PARAMS,
     PICKUP_FIELDS,
     TOP_LEVEL_TEXT,
+    UnknownParameter,
     added_pickup,
     all_names,
+    closest_name,
     default_pickup,
     lookup,
 )
 from rtvoice.engine.units import LENGTH_EXAMPLES, Length, fraction_of_string, length_within, parse_length
+from rtvoice.errors import UserError
 from rtvoice.physics.damping import loss_coefficients
 
 MAX_TEXT = 2000
@@ -39,21 +40,23 @@ INT64 = 2**63  # TOML 1.0: integers are 64-bit; larger ones "must" be an error
 MIN_RESONANCE_HZ = 200.0  # pickup resonances lie in the kHz range; 0 bypasses the filter
 MIN_INDUCTANCE_H = 0.01  # below this a "coil" is no pickup; 0 switches the circuit model off
 SCALE_KEY = "string.scale_length_mm"
-SUGGEST_CUTOFF = 0.75  # difflib ratio: "inharmonicty" -> "inharmonicity" (0.97), not "colour" -> "t60_low"
 
 
-class SettingsError(ValueError):
-    """A value that the schema does not allow, with where it came from."""
+class SettingsError(UserError, ValueError):
+    """A value that the schema does not allow, with where it came from (a ValueError too, as before).
 
-    def __init__(self, key: str, value: Any, reason: str, source: str = ""):
-        self.key, self.value, self.reason, self.source = key, value, reason, source
-        where = f"{source}: " if source else ""
-        shown = repr(value)
-        shown = shown if len(shown) <= 60 else shown[:57] + "..."
-        # Keys come from the file: a quoted TOML key may hold a newline, and messages are one line.
-        key = key if key.isprintable() else repr(key)[1:-1]
-        key = key if len(key) <= 80 else key[:77] + "..."
-        super().__init__(f"{where}{key} = {shown}: {reason}")
+    The message is ``SOURCE: KEY = VALUE: REASON``, then ``(allowed: ...)`` and
+    ``(did you mean ...?)`` when those fields are set.
+    """
+
+    def __init__(self, key: str, value: Any, reason: str, source: str = "", *, allowed: str = "",
+                 suggestion: str = ""):
+        super().__init__(reason, source=source, key=key, value=value, allowed=allowed, suggestion=suggestion)
+
+    @classmethod
+    def unknown_name(cls, err: UnknownParameter, value: Any, source: str) -> SettingsError:
+        """The error for a name :func:`lookup` refused, given ``value`` in ``source``."""
+        return cls(err.name, value, err.reason, source, suggestion=err.suggestion)
 
 
 @dataclass(frozen=True)
@@ -86,9 +89,9 @@ class Settings:
         newer = _preset_format(data.get("format", PRESET_FORMAT), source) > PRESET_FORMAT
         skipped: list[str] = []
 
-        def unknown(key: str, value: Any, reason: str = "unknown key") -> None:
+        def unknown(key: str, value: Any, reason: str = "unknown key", suggestion: str = "") -> None:
             if not newer:
-                raise SettingsError(key, value, reason, source)
+                raise SettingsError(key, value, reason, source, suggestion=suggestion)
             skipped.append(key)
 
         changes: dict[str, Any] = {}
@@ -117,8 +120,8 @@ class Settings:
                     key = f"{top}.{sub}"
                     try:
                         lookup(key)
-                    except KeyError as err:
-                        unknown(key, v, str(err.args[0]).split(": ", 1)[-1] + did_you_mean(key))
+                    except UnknownParameter as err:
+                        unknown(key, v, err.reason, err.suggestion)
                         continue
                     changes[key] = v
             elif any(n.startswith(f"{top}.") for n in PARAMS):
@@ -174,12 +177,12 @@ class Settings:
         for key, raw in changes.items():
             try:
                 param, index = lookup(key)
-            except KeyError as err:
-                raise SettingsError(key, raw, str(err.args[0]).split(": ", 1)[-1] + did_you_mean(key), source) from None
+            except UnknownParameter as err:
+                raise SettingsError.unknown_name(err, raw, source) from None
             try:
                 value = param.check(raw)
             except (ValueError, OverflowError) as err:  # OverflowError: an int beyond float range
-                raise SettingsError(key, raw, f"{err} (allowed: {param.describe_range()})", source) from None
+                raise SettingsError(key, raw, str(err), source, allowed=param.describe_range()) from None
             if index is None:
                 values[key] = value
                 continue
@@ -280,7 +283,7 @@ def is_fraction_of_length(key: str) -> bool:
     """Positions and widths: fractions of the speaking length, which may also be typed as lengths."""
     try:
         param, _ = lookup(key)
-    except KeyError:
+    except UnknownParameter:
         return False
     return key.startswith(("pickup.", "excitation.")) and key.rsplit(".", 1)[1] in ("position", "width") \
         and param.kind == "float" and not param.unit
@@ -309,22 +312,12 @@ def _checked_mm(param, key: str, raw: Any, source: str) -> float:
         try:
             return param.check(raw)
         except (ValueError, OverflowError) as err:
-            raise SettingsError(key, raw, f"{err} (allowed: {param.describe_range()})", source) from None
+            raise SettingsError(key, raw, str(err), source, allowed=param.describe_range()) from None
     length = _length(key, raw, source, "a number of millimetres")
     try:
         return length_within(length, param.low, param.high)
     except ValueError as err:
         raise SettingsError(key, raw, str(err), source) from None
-
-
-def did_you_mean(key: str) -> str:
-    """`` (did you mean NAME?)`` for a mistyped parameter name close to a real one, else ''."""
-    names = all_names(1)
-    index = re.search(r"\.(\d+)\.", key)
-    if index and int(index.group(1)) < MAX_PICKUPS:  # keep the pickup the name meant
-        names = [n.replace("pickup.0.", f"pickup.{index.group(1)}.") for n in names]
-    close = difflib.get_close_matches(key, names, n=1, cutoff=SUGGEST_CUTOFF)
-    return f" (did you mean {close[0]}?)" if close else ""
 
 
 def _read_pickups(value: Any, source: str, unknown) -> list[dict[str, Any]]:
@@ -339,7 +332,7 @@ def _read_pickups(value: Any, source: str, unknown) -> list[dict[str, Any]]:
             if f in PICKUP_FIELDS:
                 kept[f] = item[f]
             else:
-                unknown(f"pickup.{i}.{f}", item[f], "unknown key" + did_you_mean(f"pickup.{i}.{f}"))
+                unknown(f"pickup.{i}.{f}", item[f], "unknown key", closest_name(f"pickup.{i}.{f}"))
         out.append(kept)
     return out
 
@@ -377,8 +370,8 @@ def parse_assignment(text: str, source: str = "") -> tuple[str, Any]:
     key, raw = (s.strip() for s in text.split("=", 1))
     try:
         lookup(key)
-    except KeyError as err:
-        raise SettingsError(key, raw, str(err.args[0]).split(": ", 1)[-1] + did_you_mean(key), source) from None
+    except UnknownParameter as err:
+        raise SettingsError.unknown_name(err, raw, source) from None
     try:
         value = tomllib.loads(f"v = {raw}")["v"]
     except tomllib.TOMLDecodeError:

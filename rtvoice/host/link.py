@@ -22,7 +22,7 @@ import numpy as np
 from rtvoice.engine.controls import check_entries
 from rtvoice.engine.settings import Settings, SettingsError
 from rtvoice.host.board import SILENT_DB, SPECTRUM_BINS, Board
-from rtvoice.host.errors import HostError
+from rtvoice.host.errors import HostError, MidiMessageError
 from rtvoice.host.options import parse_mpe
 from rtvoice.host.rates import DEFAULT_RATE_HZ, Latency, latency_of
 
@@ -251,9 +251,9 @@ class EngineLink:
         self._send(("midi", 0x80 | channel, note, 0))
 
     def send_midi(self, status: int, data1: int = 0, data2: int = 0) -> None:
-        """Any channel-voice message, as if it came from a MIDI input."""
-        if not 0x80 <= status <= 0xEF:
-            raise SettingsError("status", status, "expected a channel message status byte 0x80..0xEF")
+        """Any channel-voice message, as if it came from a MIDI input; MidiMessageError for a bad byte."""
+        if isinstance(status, bool) or not isinstance(status, int) or not 0x80 <= status <= 0xEF:
+            raise MidiMessageError("status", status, "not a channel message status byte", "0x80..0xEF")
         _check_byte("data1", data1)
         _check_byte("data2", data2)
         self._send(("midi", status, data1, data2))
@@ -376,9 +376,9 @@ class EngineLink:
 
 def _check_byte(what: str, value: int) -> None:
     if isinstance(value, bool) or not isinstance(value, int) or not 0 <= value <= 127:
-        raise SettingsError(what, value, "expected a whole number 0..127")
+        raise MidiMessageError(what, value, "not a MIDI data byte", "whole numbers 0..127")
 
 
 def _check_channel(channel: int) -> None:
     if isinstance(channel, bool) or not isinstance(channel, int) or not 0 <= channel <= 15:
-        raise SettingsError("channel", channel, "expected 0..15 (MIDI channels 1-16)")
+        raise MidiMessageError("channel", channel, "not a MIDI channel", "0..15, MIDI channels 1-16")

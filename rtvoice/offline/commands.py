@@ -20,7 +20,8 @@ from rtvoice.engine.presets import (
 )
 from rtvoice.engine.settings import Settings, apply_assignments
 from rtvoice.engine.units import parse_note
-from rtvoice.offline.midifile import MidiFileError, read_midi_events
+from rtvoice.errors import UserError
+from rtvoice.offline.midifile import read_midi_events
 from rtvoice.offline.render import iter_blocks, longest_frames, note_events, text_progress
 from rtvoice.offline.wav import WavStreamWriter
 
@@ -30,8 +31,8 @@ WAV_MAX_FRAMES = (2**32 - 1 - 64) // 4
 WRITE_EVERY_FRAMES = 1 << 16  # gather this much audio per write: fewer header rewrites
 
 
-class RenderError(MidiFileError):
-    """A render the command line refuses before starting (output place, length)."""
+class RenderError(UserError, ValueError):
+    """A render the command line refuses before starting (output place, length); ``source``: the file."""
 
 
 def register(sub: argparse._SubParsersAction) -> None:
@@ -85,12 +86,13 @@ def run_render(args: argparse.Namespace) -> int:
     if args.midifile:
         events = read_midi_events(args.midifile)
         if not events:
-            raise RenderError(f"{args.midifile}: the file holds no notes or controllers")
+            raise RenderError("the file holds no notes or controllers", source=str(args.midifile))
     else:
         events = note_events(args.note, args.velocity, args.seconds)
     if longest_frames(events, args.rate, args.block, args.tail_cap) > WAV_MAX_FRAMES:
-        raise RenderError(f"{out}: the render could last longer than a WAV file holds at {args.rate} Hz "
-                          f"({WAV_MAX_FRAMES / args.rate / 3600:.1f} hours); lower --tail-cap or --rate")
+        raise RenderError(f"the render could last longer than a WAV file holds at {args.rate} Hz "
+                          f"({WAV_MAX_FRAMES / args.rate / 3600:.1f} hours); lower --tail-cap or --rate",
+                          source=str(out))
     if pair:
         return ab_render.render_pair(pair, events, args)
     length_s = events[-1][0] if events else 0.0

@@ -22,6 +22,8 @@ from __future__ import annotations
 
 from pathlib import Path
 
+from rtvoice.errors import UserError
+
 MAX_FILE_BYTES = 16 * 1024 * 1024
 MAX_EVENTS = 2_000_000  # events of every kind in all tracks: bounds parse time and memory
 MAX_CHANNEL_EVENTS = 1_000_000  # about 500,000 notes
@@ -37,8 +39,8 @@ META_TEMPO, META_END_OF_TRACK = 0x51, 0x2F
 TimedEvent = tuple[float, int, int, int]
 
 
-class MidiFileError(ValueError):
-    """A MIDI file that cannot be read, with the reason in plain words."""
+class MidiFileError(UserError, ValueError):
+    """A MIDI file that cannot be read, with the reason in plain words (``source``: the file)."""
 
 
 class _Bad(Exception):
@@ -56,21 +58,21 @@ def read_midi_events(path: Path | str) -> list[TimedEvent]:
     try:
         size = path.stat().st_size
         if size > MAX_FILE_BYTES:
-            raise MidiFileError(f"{path}: {size} bytes is larger than rtvoice reads ({MAX_FILE_BYTES})")
+            raise MidiFileError(f"{size} bytes is larger than rtvoice reads ({MAX_FILE_BYTES})", source=str(path))
         data = path.read_bytes()
     except OSError as err:
-        raise MidiFileError(f"{path}: cannot read ({err.strerror or err})") from None
+        raise MidiFileError(f"cannot read ({err.strerror or err})", source=str(path)) from None
     return parse_midi_bytes(data, str(path))
 
 
 def parse_midi_bytes(data: bytes, source: str = "MIDI data") -> list[TimedEvent]:
     """The events of a whole Standard MIDI File held in ``data``; see :func:`read_midi_events`."""
     if len(data) > MAX_FILE_BYTES:
-        raise MidiFileError(f"{source}: {len(data)} bytes is larger than rtvoice reads ({MAX_FILE_BYTES})")
+        raise MidiFileError(f"{len(data)} bytes is larger than rtvoice reads ({MAX_FILE_BYTES})", source=source)
     try:
         return _parse(bytes(data), source)
     except _Bad as err:
-        raise MidiFileError(f"{source}: not a readable Standard MIDI File: {err}") from None
+        raise MidiFileError(f"not a readable Standard MIDI File: {err}", source=source) from None
 
 
 def _parse(data: bytes, source: str) -> list[TimedEvent]:
@@ -85,7 +87,7 @@ def _parse(data: bytes, source: str) -> list[TimedEvent]:
     n_tracks = int.from_bytes(data[10:12], "big")
     division = int.from_bytes(data[12:14], "big")
     if fmt == 2:
-        raise MidiFileError(f"{source}: type 2 MIDI files (independent sequences) are not supported")
+        raise MidiFileError("type 2 MIDI files (independent sequences) are not supported", source=source)
     if fmt > 2:
         raise _Bad(f"format {fmt} does not exist (SMF 1.0 has formats 0, 1 and 2)")
     if n_tracks == 0:
@@ -227,6 +229,6 @@ def _timed(tracks: list[list], tempos: list, division: int, seconds_per_tick: fl
                 k += 1
             times.append(seg_s + (tick - seg_tick) * usec / (1e6 * division))
     if times and times[-1] > MAX_SECONDS:
-        raise MidiFileError(f"{source}: its notes last {times[-1] / 3600:.1f} hours, longer than rtvoice renders "
-                            f"({MAX_SECONDS / 3600:g} hours)")
+        raise MidiFileError(f"its notes last {times[-1] / 3600:.1f} hours, longer than rtvoice renders "
+                            f"({MAX_SECONDS / 3600:g} hours)", source=source)
     return [(t, status, d1, d2) for t, (_, status, d1, d2) in zip(times, merged, strict=True)]

@@ -15,22 +15,27 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
 from rtvoice.engine.schema import PARAMS, PICKUP_FIELDS
-from rtvoice.engine.settings import SettingsError
 from rtvoice.engine.units import MM_PER_UNIT, allowed_text, in_unit, parse_note, split_unit
+from rtvoice.errors import UserError
 
 MAX_AXIS_POINTS = 10_000
 STOP_TOLERANCE = 1e-9  # relative slack so 0.1:0.3:0.1 includes 0.3 despite rounding
 
 
-class SurveyError(SettingsError):
+class SurveyError(UserError, ValueError):
     """Bad survey input (a grid, a placement, a missing optional extra): one line, exit 2.
 
-    A SettingsError, so the command line's UserError tuple already reports it.
+    ``key`` is the option (``--pickup``), ``value`` what was given; the message reads
+    ``KEY = VALUE: REASON`` as a settings error's does.
     """
+
+    def __init__(self, key: str, value: Any, reason: str, source: str = "", *, allowed: str = ""):
+        super().__init__(reason, source=source, key=key, value=value, allowed=allowed)
 
 
 #: Which schema parameter bounds each kind of length.

@@ -10,7 +10,8 @@ from typing import Any
 import numpy as np
 
 from rtvoice.engine.controls import default_entries
-from rtvoice.engine.settings import Settings, SettingsError
+from rtvoice.engine.settings import Settings
+from rtvoice.errors import UserError
 from rtvoice.ui.prediction import FLOOR_DB, electronics_gain, to_db
 
 Report = Callable[[str], None]
@@ -71,7 +72,7 @@ class EngineView:
     def _call(self, report: Report, fn, *args) -> bool:
         try:
             fn(*args)
-        except SettingsError as err:
+        except UserError as err:  # a refused value (SettingsError) or MIDI byte (MidiMessageError)
             report(str(err))
             return False
         return True
