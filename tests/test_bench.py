@@ -19,6 +19,7 @@ import numpy as np
 import pytest
 import scipy.signal
 from analysis import fit_damped_modes, peak_frequency_hz
+from support.describe import failing
 
 from rtvoice.bench.baselines import (
     KarplusStrongBank,
@@ -149,7 +150,9 @@ def test_baseline_levels_follow_the_pluck_and_pickup_formulas(renders, name):
     sounding = ~_nulls(k)
     ratio = amps[sounding] / amps[0]
     assert np.allclose(ratio, expected[sounding] / expected[0], rtol=0.02)
-    assert np.all(amps[~sounding] < 1e-4 * amps[0])
+    assert np.all(amps[~sounding] < 1e-4 * amps[0]), (
+        "amplitude over the fundamental's at the nulls, want < 1e-4: "
+        + failing(amps[~sounding] < 1e-4 * amps[0], amps[~sounding] / amps[0], k[~sounding], "harmonics"))
 
 
 def test_karplus_strong_renders_the_engine_partials(renders):
@@ -167,8 +170,12 @@ def test_karplus_strong_renders_the_engine_partials(renders):
     assert np.allclose(db_ks[strong], db_engine[strong], atol=0.25)
     assert np.allclose(db_ks[weak], db_engine[weak], atol=1.0)
     # The pluck-position comb 1 - z^-(P/4) removes every 4th harmonic (Jaffe & Smith 1983).
-    assert np.all(db_ks[~sounding] < db_ks[0] - 60)
-    assert np.all(db_engine[~sounding] < db_engine[0] - 60)
+    assert np.all(db_ks[~sounding] < db_ks[0] - 60), (
+        f"Karplus-Strong nulls, want < {db_ks[0] - 60:.1f} dB: "
+        + failing(db_ks[~sounding] < db_ks[0] - 60, db_ks[~sounding], K[~sounding], "harmonics"))
+    assert np.all(db_engine[~sounding] < db_engine[0] - 60), (
+        f"engine nulls, want < {db_engine[0] - 60:.1f} dB: "
+        + failing(db_engine[~sounding] < db_engine[0] - 60, db_engine[~sounding], K[~sounding], "harmonics"))
 
 
 def test_pluck_comb_magnitude_jaffe_smith():

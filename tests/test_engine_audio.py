@@ -11,6 +11,7 @@ import math
 import numpy as np
 import pytest
 from analysis import db, decay_rate_per_s, fit_damped_modes, peak_frequency_hz
+from support.describe import failing, nonfinite
 
 from rtvoice.engine.output import CEILING
 from rtvoice.engine.renderer import OUTPUT_SCALE, RETIRE_LEVEL, Engine
@@ -111,8 +112,10 @@ def test_pluck_at_a_quarter_removes_every_fourth_harmonic_in_the_audio():
     c = np.abs(fit_damped_modes(x, FS, f0 * k, damping(f0 * k)))
     rel = db(c / c.max())
     # sin(4 pi / 4) = 0 exactly; what remains is the DC blocker's onset transient and float32 rounding.
-    assert np.all(rel[[3, 7, 11, 15]] < -70)
-    assert np.all(rel[[0, 1, 2, 4, 5, 6]] > -30)
+    assert np.all(rel[[3, 7, 11, 15]] < -70), \
+        f"harmonics 4, 8, 12, 16 at {np.round(rel[[3, 7, 11, 15]], 1)} dB, want < -70 dB"
+    assert np.all(rel[[0, 1, 2, 4, 5, 6]] > -30), \
+        f"harmonics 1-3, 5-7 at {np.round(rel[[0, 1, 2, 4, 5, 6]], 1)} dB, want > -30 dB"
 
 
 def test_pickup_at_a_third_removes_every_third_harmonic_in_the_audio():
@@ -123,8 +126,10 @@ def test_pickup_at_a_third_removes_every_third_harmonic_in_the_audio():
     k = np.arange(1, 13)
     c = np.abs(fit_damped_modes(x, FS, f0 * k, damping(f0 * k)))
     rel = db(c / c.max())
-    assert np.all(rel[[2, 5, 8, 11]] < -70)
-    assert np.all(rel[[0, 1, 3, 4]] > -30)
+    assert np.all(rel[[2, 5, 8, 11]] < -70), \
+        f"harmonics 3, 6, 9, 12 at {np.round(rel[[2, 5, 8, 11]], 1)} dB, want < -70 dB"
+    assert np.all(rel[[0, 1, 3, 4]] > -30), \
+        f"harmonics 1, 2, 4, 5 at {np.round(rel[[0, 1, 3, 4]], 1)} dB, want > -30 dB"
 
 
 def test_electronics_shape_the_harmonics_as_the_analog_low_pass():
@@ -154,7 +159,8 @@ def test_note_lands_on_its_exact_sample():
     engine.render()
     out = engine.render([(100, 0x90, 60, 100)]).copy()
     assert out.size > 100 + LATENCY  # the fixed latency keeps the onset in this block
-    assert np.all(out[: 100 + LATENCY] == 0.0)
+    assert np.all(out[: 100 + LATENCY] == 0.0), \
+        "sound before the note's sample: " + failing(out[: 100 + LATENCY] == 0.0, out[: 100 + LATENCY], what="samples")
     assert abs(out[100 + LATENCY]) > 1e-3
 
 
@@ -351,7 +357,7 @@ def test_output_never_exceeds_the_ceiling_when_slammed():
     for i in range(200):
         events = [(j * 4, 0x90, 30 + (i * 7 + j) % 60, 127) for j in range(8)] if i % 3 == 0 else []
         y = engine.render(events)
-        assert np.all(np.isfinite(y))
+        assert np.all(np.isfinite(y)), f"block {i}: {nonfinite(y)}"
         peak = max(peak, float(np.max(np.abs(y))))
     assert peak <= CEILING
     assert peak > 0.8  # the limiter was really working at the ceiling

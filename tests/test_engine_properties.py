@@ -3,6 +3,7 @@
 import numpy as np
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
+from support.describe import finite_peak, nonfinite
 
 from rtvoice.engine.output import CEILING
 from rtvoice.engine.renderer import Engine
@@ -62,7 +63,7 @@ def test_every_block_is_finite_and_under_the_ceiling(s, block, stream):
     for i in range(48):
         events = sorted(by_block.get(i, []))
         y = engine.render(events)
-        assert np.all(np.isfinite(y))
+        assert np.all(np.isfinite(y)), f"block {i}: {nonfinite(y)}"
         assert np.max(np.abs(y)) <= CEILING
 
 
@@ -74,7 +75,7 @@ def test_loud_chords_stay_under_the_ceiling(gain, notes):
     events = [(i % 128, 0x90, n, 127) for i, n in enumerate(notes)]
     for i in range(30):
         y = engine.render(events if i == 0 else ())
-        assert np.max(np.abs(y)) <= CEILING and np.all(np.isfinite(y))
+        assert np.max(np.abs(y)) <= CEILING and np.all(np.isfinite(y)), f"block {i}: {finite_peak(y, CEILING)}"
 
 
 def pickup_lists():

@@ -20,21 +20,23 @@ import signal
 import subprocess
 import sys
 import time
+from collections.abc import Sequence
 from pathlib import Path
 
-import jackutil
 import numpy as np
 import pytest
 from analysis import relative_levels_through_steps, steady_frequency_hz
+from support.capture import Recording
+from support.headless_host import HeadlessHost
+from support.jack_server import connect, connections, list_ports, wait_for_ports
+from support.midi_senders import RtmidiSender
 
 from rtvoice.engine.controls import default_entries
 from rtvoice.offline.wav import read_wav
 from rtvoice.physics.pickup import aperture_weights
-from rtvoice.procutil import stop_process
 
 pytestmark = pytest.mark.jack
 
-START_TIMEOUT_S = 40.0  # the host process imports numpy and scipy; slow on a busy 2-core machine
 T60_S = 60.0  # equal at all frequencies: every harmonic decays alike, ratios stay put
 SIGMA = 3 * np.log(10) / T60_S  # decay rate for T60 (T60 = 3 ln 10 / sigma)
 QUIET = ["--set", "string.inharmonicity=0", "--set", f"string.t60_low={T60_S}",
@@ -45,46 +47,29 @@ def equal_tempered_hz(note: float) -> float:
     return 440.0 * 2.0 ** ((note - 69) / 12)
 
 
-class Host:
-    """One ``rtvoice play --headless`` process and a MIDI sender wired to it."""
+class Host(HeadlessHost):
+    """The shared headless host (support.headless_host) named for this test, with a python-rtmidi
+    sender wired to its MIDI input once it is ready, and stopped with SIGINT (Ctrl-C) by default."""
 
-    def __init__(self, tmp_path: Path, tag: str, rate: int, block: int, extra: list[str] = (),
-                 env: dict | None = None, midi: bool = True):
-        self.name = f"rtvt{os.getpid()}{tag}"
-        self.log_path = tmp_path / f"{self.name}.log"
-        self.rate = rate
-        args = [sys.executable, "-m", "rtvoice.cli", "play", "--headless", "--midi-in", "virtual",
-                "--client-name", self.name, "--rate", str(rate), "--block", str(block), *extra]
-        self._log = open(self.log_path, "w")  # noqa: SIM115 - closed in stop()
-        self.proc = subprocess.Popen(args, stdin=subprocess.DEVNULL, stdout=self._log, stderr=subprocess.STDOUT,
-                                     env=env or {**os.environ, "JACK_NO_START_SERVER": "1"},
-                                     start_new_session=True)
-        self.out_port = f"{self.name}:out_0"
-        self.midi_port = f"{self.name}-midi:in"
-        self.midi_out = None
+    def __init__(self, tmp_path: Path, tag: str, rate: int, block: int, extra: Sequence[str] = (),
+                 env: dict | None = None, midi: bool = True, midi_in: str = "virtual",
+                 record: Path | None = None):
+        name = f"rtvt{os.getpid()}{tag}"
+        super().__init__(name, tmp_path / f"{name}.log", rate=rate, block=block, extra=extra, record=record,
+                         midi_in=midi_in, env=env)
+        self.sender: RtmidiSender | None = None
         self._want_midi = midi
 
     def wait_ready(self) -> Host:
-        deadline = time.monotonic() + START_TIMEOUT_S
-        while "rtvoice: MIDI in:" not in self.log():
-            if self.proc.poll() is not None or time.monotonic() > deadline:
-                self.stop()
-                raise AssertionError(f"host did not start: {self.log()[-2000:]}")
-            time.sleep(0.05)
-        jackutil.wait_for_ports(f"^{self.out_port}$", timeout_s=10)
+        super().wait_ready(midi=self._want_midi)
         if self._want_midi:
-            import rtmidi
-
-            jackutil.wait_for_ports(f"^{self.midi_port}$", timeout_s=10)
-            self.midi_out = rtmidi.MidiOut(rtmidi.API_UNIX_JACK, name=f"{self.name}-send")
-            self.midi_out.open_virtual_port("out")
-            jackutil.wait_for_ports(f"^{self.name}-send:out$", timeout_s=10)
-            jackutil.connect(f"{self.name}-send:out", self.midi_port)
+            self.sender = RtmidiSender(f"{self.name}-send")
+            connect(self.sender.port, self.midi_port)
         time.sleep(0.6)  # the output ramps in from silence over 0.5 s
         return self
 
     def send(self, *msg: int) -> None:
-        self.midi_out.send_message(list(msg))
+        self.sender.send(list(msg))
 
     def cc(self, cc: int, value: int, channel: int = 0) -> None:
         self.send(0xB0 | channel, cc, value)
@@ -96,34 +81,28 @@ class Host:
         self.send(0xE0, 0, 64)
         time.sleep(0.15)
 
-    def log(self) -> str:
-        return self.log_path.read_text(errors="replace")
-
     def xruns(self) -> int:
         """Xruns the host has counted, by its latest status line (printed about once a second)."""
-        found = [st for st in map(jackutil.parse_status, self.log().splitlines()) if st is not None]
+        found = self.statuses()
         return found[-1].xruns if found else 0
 
     def stop(self, sig: int = signal.SIGINT, timeout_s: float = 15.0) -> int:
-        if self.midi_out is not None:
-            self.midi_out.close_port()
-            self.midi_out.delete()
-            self.midi_out = None
-        code = stop_process(self.proc, timeout_s, sig)
-        self._log.close()
-        return code
+        if self.sender is not None:
+            self.sender.close()
+            self.sender = None
+        return super().stop(timeout_s, sig)
 
 
 def record(host: Host, tmp_path: Path, seconds: float, actions: list[tuple[float, callable]]):
     """Record the host's output for ``seconds`` while running timed ``actions``; returns
     (samples, the time in the file that action times are measured from at the latest)."""
     wav = tmp_path / f"{host.name}-{time.monotonic_ns()}.wav"
-    with jackutil.Recording([host.out_port], seconds, wav) as rec:
+    with Recording([host.out_port], seconds, wav) as rec:
         t0 = time.monotonic()
         for at, act in actions:
             time.sleep(max(0.0, t0 + at - time.monotonic()))
             act()
-    rate, data = rec.read()
+    data, rate = rec.read()
     assert rate == host.rate
     return data[:, 0].astype(float)
 
@@ -282,14 +261,14 @@ def test_ctrl_c_stops_cleanly_with_a_fade_and_a_valid_recording(jack_server, tmp
     sig = signal.SIGINT
     for attempt in range(3):  # again while the server disturbed the take (see undisturbed_take)
         rec_path = tmp_path / f"take{attempt}.wav"
-        h = Host(tmp_path, f"s{attempt}", jack_server.sample_rate_hz, jack_server.buffer_frames,
-                 [*QUIET, "--record", str(rec_path)]).wait_ready()
+        h = Host(tmp_path, f"s{attempt}", jack_server.sample_rate_hz, jack_server.buffer_frames, QUIET,
+                 record=rec_path).wait_ready()
         try:
             x = record(h, tmp_path, 3.0, [
                 (0.2, lambda h=h: h.send(0x90, 57, 100)),
-                (1.4, lambda h=h: h.proc.send_signal(sig)),
+                (1.4, lambda h=h: h.process.send_signal(sig)),
             ])
-            code = h.proc.wait(15)
+            code = h.process.wait(15)
         finally:
             code = h.stop()
         if _stopped_xruns(h.log()) == 0 or attempt == 2:
@@ -298,7 +277,7 @@ def test_ctrl_c_stops_cleanly_with_a_fade_and_a_valid_recording(jack_server, tmp
     log = h.log()
     assert code == 0, log[-2000:]
     assert "stopped" in log and "recorded" in log
-    assert not jackutil.list_ports(f"^{h.name}")  # its ports are gone
+    assert not list_ports(f"^{h.name}")  # its ports are gone
     rate = h.rate
     i = onset(x)
     nz = np.flatnonzero(x)
@@ -359,7 +338,7 @@ def test_devices_lists_the_jack_output_and_the_virtual_midi_port(jack_server):
     sender = rtmidi.MidiOut(rtmidi.API_UNIX_JACK, name=f"rtvdev{os.getpid()}")
     sender.open_virtual_port("out")
     try:
-        jackutil.wait_for_ports(f"^rtvdev{os.getpid()}:out$")
+        wait_for_ports(f"^rtvdev{os.getpid()}:out$")
         done = subprocess.run([sys.executable, "-m", "rtvoice.cli", "devices"], capture_output=True, text=True,
                               timeout=60, env={**os.environ, "JACK_NO_START_SERVER": "1"})
     finally:
@@ -380,8 +359,7 @@ def test_midi_input_that_appears_later_is_opened_and_one_that_vanishes_is_closed
     import rtmidi
 
     tag = f"rtvlate{os.getpid()}"
-    h = Host(tmp_path, "l", jack_server.sample_rate_hz, jack_server.buffer_frames,
-             ["--midi-in", tag], midi=False)
+    h = Host(tmp_path, "l", jack_server.sample_rate_hz, jack_server.buffer_frames, midi_in=tag, midi=False)
     try:
         h.wait_ready()
         sender = rtmidi.MidiOut(rtmidi.API_UNIX_JACK, name=tag)
@@ -390,7 +368,7 @@ def test_midi_input_that_appears_later_is_opened_and_one_that_vanishes_is_closed
         while f"MIDI input opened: {tag}:out" not in h.log() and time.monotonic() < deadline:
             time.sleep(0.1)
         assert f"MIDI input opened: {tag}:out" in h.log()
-        peers = jackutil.connections().get(f"{tag}:out", [])
+        peers = connections().get(f"{tag}:out", [])
         assert any(p.startswith(h.name) for p in peers)
         time.sleep(0.2)
         x = record(h, tmp_path, 1.0, [(0.2, lambda: sender.send_message([0x90, 64, 100]))])
@@ -402,7 +380,7 @@ def test_midi_input_that_appears_later_is_opened_and_one_that_vanishes_is_closed
             time.sleep(0.1)
         assert f"MIDI input gone: {tag}:out" in h.log()
         time.sleep(1.0)
-        assert h.proc.poll() is None  # still running
+        assert h.running()  # still running
     finally:
         code = h.stop()
     assert code == 0, h.log()[-2000:]
@@ -427,31 +405,25 @@ def test_lost_audio_server_is_reported_and_the_host_reconnects_when_it_returns(t
         done = subprocess.run(["jack_lsp"], env=env, capture_output=True, text=True, timeout=10)
         return done.stdout.split()
 
-    def wait_log(text: str, timeout_s: float) -> bool:
-        deadline = time.monotonic() + timeout_s
-        while text not in h.log() and time.monotonic() < deadline and h.proc.poll() is None:
-            time.sleep(0.1)
-        return text in h.log()
-
     jackd = start_server()
     h = None
     try:
         h = Host(tmp_path, "x", 48000, 256, env=env, midi=False)
-        assert wait_log("rtvoice: MIDI in:", START_TIMEOUT_S), h.log()[-2000:]
+        assert h.wait_for_log("rtvoice: MIDI in:", h.START_TIMEOUT_S), h.log()[-2000:]
         assert f"{h.name}:out_0" in ports()
         jackd.terminate()
         jackd.wait(10)
-        assert wait_log("audio output lost", 10.0), h.log()[-2000:]
+        assert h.wait_for_log("audio output lost", 10.0), h.log()[-2000:]
         time.sleep(1.0)
-        assert h.proc.poll() is None  # the host stays up on its silent clock
+        assert h.running()  # the host stays up on its silent clock
         jackd = start_server()
-        assert wait_log("audio output back", 40.0), h.log()[-2000:]
+        assert h.wait_for_log("audio output back", 40.0), h.log()[-2000:]
         deadline = time.monotonic() + 10
         while f"{h.name}:out_0" not in ports() and time.monotonic() < deadline:
             time.sleep(0.1)
         assert f"{h.name}:out_0" in ports()
-        h.proc.send_signal(signal.SIGTERM)
-        assert h.proc.wait(15) == 0
+        h.process.send_signal(signal.SIGTERM)
+        assert h.process.wait(15) == 0
         assert "stopped" in h.log()
     finally:
         if h is not None:

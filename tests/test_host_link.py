@@ -16,11 +16,12 @@ import time
 import numpy as np
 import pytest
 from analysis import peak_frequency_hz
+from support.describe import failing
 
 from rtvoice.engine.controls import default_entries
 from rtvoice.engine.output import CEILING
 from rtvoice.engine.settings import Settings, SettingsError
-from rtvoice.host.errors import HostError
+from rtvoice.host.errors import HostError, MidiMessageError
 from rtvoice.host.link import EngineLink
 from rtvoice.offline.wav import read_wav
 
@@ -77,9 +78,9 @@ def test_set_value_is_validated_in_the_caller(link):
     link.set_value("pickup.0.position", 0.3)
     assert link.settings.get("pickup.0.position") == 0.3
     link.set_value("pickup.0.position", Settings.defaults().get("pickup.0.position"))
-    with pytest.raises(SettingsError):
+    with pytest.raises(MidiMessageError):
         link.note_on(128)
-    with pytest.raises(SettingsError):
+    with pytest.raises(MidiMessageError):
         link.note_on(60, channel=16)
 
 
@@ -132,7 +133,9 @@ def test_recording_starts_quiet_and_runs_in_real_time_on_the_silent_clock(tmp_pa
     assert np.max(np.abs(x)) <= CEILING + 1e-7  # the -1 dBFS ceiling
     # the ramp in
     t = np.arange(x.size) / rate
-    assert np.all(np.abs(x) <= np.minimum(t / 0.5, 1.0) * CEILING + 1e-6)
+    ramp = np.minimum(t / 0.5, 1.0) * CEILING + 1e-6
+    assert np.all(np.abs(x) <= ramp), \
+        "over the 0.5 s ramp in, by time in s: " + failing(np.abs(x) <= ramp, np.abs(x), np.round(t, 5), "samples")
     first = int(np.flatnonzero(np.abs(x) > 1e-5)[0])
     assert first / rate < 0.4  # the first note did start within the ramp
     early = np.max(np.abs(x[first:first + rate // 50]))

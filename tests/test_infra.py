@@ -1,9 +1,21 @@
 """Checks of the test infrastructure itself: the JACK server, the port helpers and the
 record path (PortAudio -> JACK -> jack_capture -> WAV) that the audio tests rely on."""
 
-import jackutil
 import numpy as np
 import pytest
+from support.capture import record
+from support.jack_server import (
+    JackError,
+    JackServerInfo,
+    connect,
+    connections,
+    disconnect,
+    list_ports,
+    portaudio_jack_output_device,
+    sample_rate_hz,
+    wait_for_new_ports,
+    wait_for_ports,
+)
 
 SINE_HZ = 1000.0
 SINE_AMPLITUDE = 0.1  # -20 dBFS: quiet, well under the -1 dBFS ceiling
@@ -40,56 +52,56 @@ def test_dominant_frequency_estimator_on_known_sine() -> None:
 
 
 @pytest.mark.jack
-def test_server_answers_with_playback_ports(jack_server: jackutil.JackServerInfo) -> None:
+def test_server_answers_with_playback_ports(jack_server: JackServerInfo) -> None:
     """The server answers and offers physical playback ports, the default sink of clients."""
-    playback = jackutil.list_ports(r"^system:playback_\d+$", direction="input", physical=True)
-    assert len(playback) >= 1, jackutil.list_ports()
+    playback = list_ports(r"^system:playback_\d+$", direction="input", physical=True)
+    assert len(playback) >= 1, list_ports()
     assert set(playback) <= set(jack_server.ports)
-    assert jackutil.sample_rate_hz() == jack_server.sample_rate_hz > 0
+    assert sample_rate_hz() == jack_server.sample_rate_hz > 0
     assert jack_server.buffer_frames > 0
 
 
 @pytest.mark.jack
-def test_wait_for_ports_finds_and_times_out(jack_server: jackutil.JackServerInfo) -> None:
+def test_wait_for_ports_finds_and_times_out(jack_server: JackServerInfo) -> None:
     """wait_for_ports returns existing ports at once and raises TimeoutError for absent ones."""
-    found = jackutil.wait_for_ports(r"^system:playback_", count=1, timeout_s=2.0)
+    found = wait_for_ports(r"^system:playback_", count=1, timeout_s=2.0)
     assert found and all(name.startswith("system:playback_") for name in found)
     with pytest.raises(TimeoutError, match="no-such-client"):
-        jackutil.wait_for_ports(r"^no-such-client:", timeout_s=0.3)
+        wait_for_ports(r"^no-such-client:", timeout_s=0.3)
 
 
 @pytest.mark.jack
-def test_connect_and_disconnect(jack_server: jackutil.JackServerInfo) -> None:
+def test_connect_and_disconnect(jack_server: JackServerInfo) -> None:
     """jack_connect / jack_disconnect change what jack_lsp -c reports."""
-    source = jackutil.list_ports(r"^system:capture_", direction="output")[-1]
-    sink = jackutil.list_ports(r"^system:playback_", direction="input")[-1]
-    was_connected = sink in jackutil.connections().get(source, [])
+    source = list_ports(r"^system:capture_", direction="output")[-1]
+    sink = list_ports(r"^system:playback_", direction="input")[-1]
+    was_connected = sink in connections().get(source, [])
     if was_connected:
-        jackutil.disconnect(source, sink)
+        disconnect(source, sink)
     try:
-        assert sink not in jackutil.connections().get(source, [])
-        jackutil.connect(source, sink)
-        assert sink in jackutil.connections()[source]
-        assert source in jackutil.connections()[sink]
-        jackutil.disconnect(source, sink)
-        assert sink not in jackutil.connections().get(source, [])
+        assert sink not in connections().get(source, [])
+        connect(source, sink)
+        assert sink in connections()[source]
+        assert source in connections()[sink]
+        disconnect(source, sink)
+        assert sink not in connections().get(source, [])
     finally:
-        if was_connected and sink not in jackutil.connections().get(source, []):
-            jackutil.connect(source, sink)
+        if was_connected and sink not in connections().get(source, []):
+            connect(source, sink)
 
 
 @pytest.mark.jack
 def test_recording_of_unknown_port_is_refused(
-    jack_server: jackutil.JackServerInfo, tmp_path
+    jack_server: JackServerInfo, tmp_path
 ) -> None:
     """jack_capture only warns about a missing port; the helper must raise instead."""
-    with pytest.raises(jackutil.JackError, match="unknown ports"):
-        jackutil.record(["no-such-client:out_1"], 0.5, tmp_path / "never.wav")
+    with pytest.raises(JackError, match="unknown ports"):
+        record(["no-such-client:out_1"], 0.5, tmp_path / "never.wav")
 
 
 @pytest.mark.jack
 def test_sine_from_portaudio_is_recorded_by_jack_capture(
-    jack_server: jackutil.JackServerInfo, tmp_path
+    jack_server: JackServerInfo, tmp_path
 ) -> None:
     """Play a 1 kHz sine through sounddevice on the JACK host API for longer than 1 s, record
     the stream's JACK output port with jack_capture for 1 s and measure the WAV:
@@ -114,15 +126,15 @@ def test_sine_from_portaudio_is_recorded_by_jack_capture(
         outdata[:, 0] = np.take(table, np.arange(position, position + frames), mode="wrap")
         position = (position + frames) % rate_hz
 
-    device = jackutil.portaudio_jack_output_device()
-    before = set(jackutil.list_ports())
+    device = portaudio_jack_output_device()
+    before = set(list_ports())
     stream = sd.OutputStream(
         device=device, samplerate=rate_hz, channels=1, dtype="float32", callback=callback
     )
     with stream:
-        ports = jackutil.wait_for_new_ports(before, direction="output", timeout_s=5.0)
+        ports = wait_for_new_ports(before, direction="output", timeout_s=5.0)
         assert len(ports) == 1, ports
-        got_rate_hz, samples = jackutil.record(ports, RECORD_S, tmp_path / "sine.wav")
+        samples, got_rate_hz = record(ports, RECORD_S, tmp_path / "sine.wav")
     assert got_rate_hz == rate_hz
     assert samples.shape[1] == 1
     assert abs(samples.shape[0] - RECORD_S * rate_hz) <= jack_server.buffer_frames, samples.shape

@@ -6,6 +6,7 @@ import pytest
 import scipy.integrate
 from hypothesis import given, settings
 from hypothesis import strategies as st
+from support.describe import failing
 
 from rtvoice.physics.excitation import (
     excitation_amplitudes,
@@ -37,7 +38,8 @@ def test_midpoint_pluck_values():
 def test_midpoint_pluck_odd_only_falling_as_inverse_square():
     # Blackstock, Fundamentals of Physical Acoustics, 2000: mid-point pluck has odd harmonics only, 1/k^2.
     a = pluck_amplitudes(K, 0.5)
-    assert np.all(np.abs(a[1::2]) < 1e-15)
+    assert np.all(np.abs(a[1::2]) < 1e-15), \
+        "even harmonics, want 0: " + failing(np.abs(a[1::2]) < 1e-15, a[1::2], K[1::2], "harmonics")
     odd = K[::2]
     np.testing.assert_allclose(np.abs(a[::2]) * odd**2, 8 / np.pi**2, rtol=1e-12)
 
@@ -124,8 +126,10 @@ def test_breakpoint_shape_of_a_triangle_matches_closed_form():
 
 def test_excitation_amplitudes_kinds():
     a, b = excitation_amplitudes("pluck", 10, 0.2, 0.0)
-    assert np.all(b == 0) and a[4] == pytest.approx(0, abs=1e-12)
+    assert np.all(b == 0) and a[4] == pytest.approx(0, abs=1e-12), \
+        f"a pluck starts at rest (velocities {b}) and leaves out k = 5 at 0.2 (a_5 = {a[4]:.3g})"
     a, b = excitation_amplitudes("strike", 10, 0.25, 0.0)
-    assert np.all(a == 0) and b[3] == pytest.approx(0, abs=1e-12)
+    assert np.all(a == 0) and b[3] == pytest.approx(0, abs=1e-12), \
+        f"a strike starts undisplaced (displacements {a}) and leaves out k = 4 at 0.25 (b_4 = {b[3]:.3g})"
     with pytest.raises(ValueError):
         excitation_amplitudes("bow", 10, 0.2, 0.0)

@@ -2,7 +2,7 @@
 
 The server-loss test runs a JACK server of its own (``jackd -n NAME``), so no other test
 loses its server; the MIDI tests use the session's server. MIDI comes from
-:class:`jackutil.RawMidiSender`, an external libjack client in a subprocess that can vanish
+:class:`support.midi_senders.RawMidiSender`, an external libjack client in a subprocess that can vanish
 (its client closed: an unplugged device) and come back under the same name.
 
 Sources: 12-TET f = 440 * 2^((n - 69) / 12), A4 = 440 Hz (ISO 16:1975); MIDI 1.0 Detailed
@@ -21,10 +21,13 @@ import subprocess
 import sys
 import time
 
-import jackutil
 import numpy as np
 import pytest
 from analysis import peak_frequency_hz
+from support.describe import finite_peak
+from support.headless_host import HeadlessHost
+from support.jack_server import JACK_ENV, connect, connections, list_ports, server_answers, wait_for_ports
+from support.midi_senders import RawMidiSender
 
 from rtvoice.engine.output import CEILING
 from rtvoice.offline.wav import read_wav
@@ -62,12 +65,12 @@ def _wait(predicate, timeout_s: float, poll_s: float = 0.05) -> bool:
 
 @pytest.fixture
 def own_server(monkeypatch):
-    """A JACK dummy server named for this test; every jackutil helper talks to it."""
+    """A JACK dummy server named for this test; every support helper talks to it."""
     if shutil.which("jackd") is None or shutil.which("jack_wait") is None:
         pytest.skip("jackd/jack_wait not found (Debian package jackd2)")
     name = f"rtvfault{os.getpid()}"
-    monkeypatch.setitem(jackutil.JACK_ENV, "JACK_DEFAULT_SERVER", name)
-    env = dict(jackutil.JACK_ENV)
+    monkeypatch.setitem(JACK_ENV, "JACK_DEFAULT_SERVER", name)
+    env = dict(JACK_ENV)
     procs: list[subprocess.Popen] = []
 
     def start() -> float:
@@ -77,7 +80,7 @@ def own_server(monkeypatch):
                                 env=env)
         procs.append(proc)
         done = subprocess.run(["jack_wait", "-w", "-t", "10"], env=env, capture_output=True, timeout=20)
-        assert done.returncode == 0 and jackutil.server_answers(), "the test's JACK server did not start"
+        assert done.returncode == 0 and server_answers(), "the test's JACK server did not start"
         return time.monotonic()
 
     def kill() -> None:
@@ -103,13 +106,13 @@ def own_server(monkeypatch):
 def test_server_killed_while_notes_play_is_reported_and_the_host_comes_back(own_server, tmp_path):
     own_server.start()
     name = f"rtvkill{os.getpid()}"
-    host = jackutil.HeadlessHost(name, tmp_path / "host.log", rate=48000, block=256, extra=SOUND,
+    host = HeadlessHost(name, tmp_path / "host.log", rate=48000, block=256, extra=SOUND,
                                  record=tmp_path / "take.wav", env=own_server.env)
     sender = None
     try:
         host.wait_ready()
-        sender = jackutil.RawMidiSender(f"{name}-send", env=own_server.env)
-        jackutil.connect(sender.port, host.midi_port)
+        sender = RawMidiSender(f"{name}-send", env=own_server.env)
+        connect(sender.port, host.midi_port)
         time.sleep(0.6)  # the ramp in
         for note in (45, 57):  # two notes ringing (T60 20 s) when the server dies
             sender.send([0x90, note, 100])
@@ -127,12 +130,12 @@ def test_server_killed_while_notes_play_is_reported_and_the_host_comes_back(own_
         assert host.running()
         ready_at = own_server.start()
         assert host.wait_for_log("audio output back", 40.0), host.log()[-2000:]
-        jackutil.wait_for_ports(f"^{host.out_port}$", timeout_s=10)
-        jackutil.wait_for_ports(f"^{host.midi_port}$", timeout_s=10)
+        wait_for_ports(f"^{host.out_port}$", timeout_s=10)
+        wait_for_ports(f"^{host.midi_port}$", timeout_s=10)
         reconnect_s = time.monotonic() - ready_at
         print(f"reconnect: {reconnect_s:.1f} s after the server answered again")
-        sender = jackutil.RawMidiSender(f"{name}-send", env=own_server.env)
-        jackutil.connect(sender.port, host.midi_port)
+        sender = RawMidiSender(f"{name}-send", env=own_server.env)
+        connect(sender.port, host.midi_port)
         time.sleep(0.6)  # a restarted engine ramps in again
         start = host.recorded().size
         sender.send([0x90, 64, 100])
@@ -147,7 +150,7 @@ def test_server_killed_while_notes_play_is_reported_and_the_host_comes_back(own_
         assert "stopped" in log and "recorded" in log
         take, rate = read_wav(tmp_path / "take.wav")
         assert rate == 48000
-        assert np.all(np.isfinite(take)) and np.max(np.abs(take)) <= CEILING
+        assert np.all(np.isfinite(take)) and np.max(np.abs(take)) <= CEILING, finite_peak(take, CEILING)
         # Nothing lost: the take still holds the notes from before the loss, sample for sample.
         n = min(before.size, take.size)
         assert n >= before.size - 48 and np.array_equal(take[:n], before[:n].astype(np.float32))
@@ -159,7 +162,7 @@ def test_server_killed_while_notes_play_is_reported_and_the_host_comes_back(own_
 
 # -- a MIDI input unplugged and plugged back ------------------------------------------------------
 
-def _note_sounds(host: jackutil.HeadlessHost, sender: jackutil.RawMidiSender, note: int) -> float:
+def _note_sounds(host: HeadlessHost, sender: RawMidiSender, note: int) -> float:
     """Play ``note`` through ``sender``; return its pitch error in cents (asserts it sounded)."""
     start = host.recorded().size
     sender.send([0x90, note, 100])
@@ -177,19 +180,19 @@ def test_midi_input_unplugged_and_plugged_back_is_closed_and_reopened(jack_serve
     JACK dropped the connection with the old one)."""
     tag = f"rtvplug{os.getpid()}"
     name = f"{tag}host"
-    host = jackutil.HeadlessHost(name, tmp_path / "host.log", rate=jack_server.sample_rate_hz,
+    host = HeadlessHost(name, tmp_path / "host.log", rate=jack_server.sample_rate_hz,
                                  block=jack_server.buffer_frames, extra=SOUND, record=tmp_path / "take.wav",
                                  midi_in=tag)
     opened, gone = f"MIDI input opened: {tag}:out", f"MIDI input gone: {tag}:out"
     sender = None
     try:
         host.wait_ready(midi=False)
-        sender = jackutil.RawMidiSender(tag)
+        sender = RawMidiSender(tag)
         assert host.wait_for_log(opened, 10.0), host.log()[-2000:]
         time.sleep(0.6)
         assert abs(_note_sounds(host, sender, 57)) < 0.2
         for round_, away_s in ((2, 1.5), (3, 0.0)):
-            again = jackutil.RawMidiSender(tag, paused=True)  # the process only, no client yet
+            again = RawMidiSender(tag, paused=True)  # the process only, no client yet
             sender.unplug()
             old, sender = sender, again
             if away_s:
@@ -199,7 +202,7 @@ def test_midi_input_unplugged_and_plugged_back_is_closed_and_reopened(jack_serve
             old.close()
             assert _wait(lambda n=round_: host.log().count(opened) >= n, 10.0), host.log()[-2000:]
             assert host.log().count(gone) == round_ - 1
-            peers = jackutil.connections().get(f"{tag}:out", [])
+            peers = connections().get(f"{tag}:out", [])
             assert any(p.startswith(name) for p in peers), peers
             assert abs(_note_sounds(host, sender, 60 + round_)) < 0.2
             assert host.running()
@@ -207,7 +210,7 @@ def test_midi_input_unplugged_and_plugged_back_is_closed_and_reopened(jack_serve
         sender = None
         assert host.stop() == 0, host.log()[-2000:]
         take, _ = read_wav(tmp_path / "take.wav")
-        assert np.all(np.isfinite(take)) and np.max(np.abs(take)) <= CEILING
+        assert np.all(np.isfinite(take)) and np.max(np.abs(take)) <= CEILING, finite_peak(take, CEILING)
     finally:
         if sender is not None:
             sender.close()
@@ -247,7 +250,7 @@ def test_ui_killed_while_a_note_rings_the_engine_fades_out_and_exits(jack_server
     path = tmp_path / "ui_stand_in.py"
     path.write_text(script)
     ui = subprocess.Popen([sys.executable, str(path)], stdout=subprocess.PIPE, text=True,
-                          env=jackutil.JACK_ENV, start_new_session=True)
+                          env=JACK_ENV, start_new_session=True)
     engine_pid = -1
     try:
         engine_pid = int(ui.stdout.readline())
@@ -256,7 +259,7 @@ def test_ui_killed_while_a_note_rings_the_engine_fades_out_and_exits(jack_server
         killed_at = time.monotonic()
         assert _wait(lambda: not _running(engine_pid), 10.0), "the engine outlived its UI"
         print(f"engine gone {time.monotonic() - killed_at:.2f} s after its UI was killed")
-        assert not jackutil.list_ports(f"^{name}:")
+        assert not list_ports(f"^{name}:")
     finally:
         if ui.poll() is None:
             ui.kill()
@@ -265,7 +268,7 @@ def test_ui_killed_while_a_note_rings_the_engine_fades_out_and_exits(jack_server
         if engine_pid > 0 and _running(engine_pid):
             os.kill(engine_pid, signal.SIGKILL)
     x, rate = read_wav(take)
-    assert np.all(np.isfinite(x)) and np.max(np.abs(x)) <= CEILING
+    assert np.all(np.isfinite(x)) and np.max(np.abs(x)) <= CEILING, finite_peak(x, CEILING)
     last = int(np.flatnonzero(x)[-1])
     steady = x[last - int(0.9 * rate): last - rate // 10]  # the note rings; the fade takes the last 80 ms
     assert np.sqrt(np.mean(steady**2)) > 1e-2  # the note still rang when the UI died

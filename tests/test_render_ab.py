@@ -17,6 +17,7 @@ import numpy as np
 import pytest
 import scipy.io.wavfile
 from analysis import db, peak_frequency_hz
+from support.describe import failing
 
 from rtvoice.cli import main
 
@@ -67,7 +68,8 @@ def plain_render(tmp_path: Path, name: str, sound: list[str], capsys) -> np.ndar
 
 def assert_is_plain_render_then_silence(take: np.ndarray, plain: np.ndarray) -> None:
     assert np.array_equal(take[: plain.size], plain)  # bit-identical: float32 samples, no tolerance
-    assert not np.any(take[plain.size :])
+    assert not np.any(take[plain.size :]), \
+        "sound after the plain render's end: " + failing(take[plain.size :] == 0, take[plain.size :], what="samples")
 
 
 def harmonic_levels_db(x: np.ndarray, fs: int, f0_hz: float, count: int) -> np.ndarray:
@@ -139,7 +141,10 @@ def test_pickup_at_a_quarter_silences_every_fourth_harmonic_and_at_a_third_every
         levels = harmonic_levels_db(samples, fs, E2_HZ, harmonics.size)
         measured_silent = {int(k) for k, level in zip(harmonics, levels, strict=True) if level < SILENT_BELOW_DB}
         assert measured_silent == silent, np.round(levels, 1)
-        assert np.all(levels[[k - 1 for k in harmonics if k not in silent]] > SOUNDING_ABOVE_DB)
+        sounding = [k - 1 for k in harmonics if k not in silent]
+        assert np.all(levels[sounding] > SOUNDING_ABOVE_DB), \
+            f"want > {SOUNDING_ABOVE_DB} dB: " + failing(levels[sounding] > SOUNDING_ABOVE_DB, levels[sounding],
+                                                         harmonics[sounding], "harmonics")
     # The harmonic one file lacks sounds in the other, at its place: 4 f0 in B, 3 f0 in A.
     held = slice(int(0.02 * fs), int(0.47 * fs))
     assert peak_frequency_hz(take_b[held].astype(float), fs, 4 * E2_HZ, 20) == pytest.approx(4 * E2_HZ, abs=0.5)

@@ -17,6 +17,7 @@ from fractions import Fraction
 import numpy as np
 import pytest
 from analysis import fit_damped_modes
+from support.describe import failing
 
 from rtvoice.cli import main
 from rtvoice.engine.presets import load_preset
@@ -167,13 +168,15 @@ def test_centroid_rises_as_the_pickup_moves_toward_the_bridge(preset):
     settings = load_preset(preset) if preset else Settings.defaults()
     pickups = [0.48, 0.24, 0.12, 0.06, 0.03]
     result = survey(settings, [40, 52, 64], pickups, np.linspace(0.1, 0.45, 15), sensings=["velocity", "displacement"])
-    assert np.all(np.diff(result.centroid_hz, axis=-1) > 0)
+    steps_hz = np.diff(result.centroid_hz, axis=-1)
+    assert np.all(steps_hz > 0), "centroid steps toward the bridge (Hz), want > 0: " + failing(steps_hz > 0, steps_hz)
 
 
 def test_centroid_rises_as_the_pluck_moves_toward_the_bridge():
     # Plucking nearer the bridge gives a brighter tone (common practice among players).
     result = survey(Settings.defaults(), [40, 64], [0.03, 0.06, 0.12, 0.24, 0.48], [0.3, 0.2, 0.15, 0.1])
-    assert np.all(np.diff(result.centroid_hz, axis=-2) > 0)
+    steps_hz = np.diff(result.centroid_hz, axis=-2)
+    assert np.all(steps_hz > 0), "centroid steps toward the bridge (Hz), want > 0: " + failing(steps_hz > 0, steps_hz)
 
 
 # -- outside facts: the electronics ------------------------------------------------------

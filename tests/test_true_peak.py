@@ -16,6 +16,7 @@ import pytest
 import scipy.signal
 from hypothesis import given, settings
 from hypothesis import strategies as st
+from support.describe import finite_peak, nonfinite
 from true_peak_meter import BS1770_FIR, BS1770_PHASES, dbtp, oversampled, reference_true_peak, true_peak
 
 from rtvoice.engine.output import CEILING, Limiter
@@ -138,7 +139,7 @@ def test_non_finite_input_never_reaches_the_output(bad):
     x[5000] = bad
     lim = Limiter(FS, 256)
     y = _through(lim, x, 256)
-    assert np.all(np.isfinite(y))
+    assert np.all(np.isfinite(y)), nonfinite(y)
     assert np.max(np.abs(y)) <= CEILING
     assert dbtp(true_peak(y)) <= CEILING_DBTP
     block_out = 5000 // 256 * 256 + lim.latency_frames
@@ -164,7 +165,7 @@ def render(settings: Settings, chord: list[tuple[int, int]], seconds: float, blo
     for b in range(int(seconds * rate / block)):
         y = engine.render([(at, 0x90, note, vel) for note, vel in chord] if b == 2 else [])
         if not bypass:
-            assert np.all(np.isfinite(y)) and np.max(np.abs(y)) <= CEILING, f"block {b}"
+            assert np.all(np.isfinite(y)) and np.max(np.abs(y)) <= CEILING, f"block {b}: {finite_peak(y, CEILING)}"
         deepest = max(deepest, engine.stats.gain_reduction_db)
         out.append(y.copy())
     return np.concatenate(out), deepest
@@ -211,7 +212,7 @@ def test_a_voice_gone_bad_never_reaches_the_output_and_the_ceiling_holds():
         if b == 40:
             engine.pool.s[0, 0] = np.nan
         y = engine.render([(0, 0x90, n, 127) for n in SIX_STRINGS] if b == 2 else [])
-        assert np.all(np.isfinite(y)) and np.max(np.abs(y)) <= CEILING
+        assert np.all(np.isfinite(y)) and np.max(np.abs(y)) <= CEILING, f"block {b}: {finite_peak(y, CEILING)}"
         out.append(y.copy())
     assert engine.stats.dropped_bad >= 1
     y = np.concatenate(out)

@@ -15,12 +15,15 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from test_ui_helpers import fresh, home, link, run, screen_text, wait_for  # noqa: F401 - home and link are shared fixtures
+from support.describe import failing
+from support.ui import fresh, run, screen_text, wait_for
 
 from rtvoice.physics.pickup import aperture_weights
 from rtvoice.ui.app import RtvoiceApp
 from rtvoice.ui.prediction import FLOOR_DB
 from rtvoice.ui.widgets.bars import AXIS, COLUMNS_PER_HARMONIC, NULL_MARK
+
+pytestmark = pytest.mark.usefixtures("home")  # a user folder of its own for every test (conftest.py)
 
 
 def published_pickup_weight(k: np.ndarray, x: float, w: float) -> np.ndarray:
@@ -86,8 +89,12 @@ def test_a_pickup_at_a_quarter_of_the_string_shows_every_fourth_harmonic_as_sile
     k = np.arange(1, predicted.size + 1)
     silent = predicted <= FLOOR_DB
     # The default pluck at L/5 adds its own nulls at k = 5, 10, ... (same mode-shape argument).
-    assert np.all(silent[k % 4 == 0])
-    assert not np.any(silent[(k % 4 != 0) & (k % 5 != 0)])
+    assert np.all(silent[k % 4 == 0]), \
+        f"every 4th harmonic silent (<= {FLOOR_DB} dB): " + failing(silent[k % 4 == 0], predicted[k % 4 == 0],
+                                                                  k[k % 4 == 0], "harmonics")
+    kept = (k % 4 != 0) & (k % 5 != 0)
+    assert not np.any(silent[kept]), \
+        f"the others sound (> {FLOOR_DB} dB): " + failing(~silent[kept], predicted[kept], k[kept], "harmonics")
     lines = text.splitlines()
     axis_row = next(i for i, line in enumerate(lines) if line[:AXIS].strip() == "k")
     lowest = lines[axis_row - 1]

@@ -5,7 +5,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from test_ui_helpers import fresh, home, link, run, screen_text  # noqa: F401 - home and link are shared fixtures
+from support.ui import fresh, run, screen_text
 
 from rtvoice.engine.settings import Settings
 from rtvoice.ui.app import RtvoiceApp
@@ -13,6 +13,8 @@ from rtvoice.ui.compare import compare_slots
 from rtvoice.ui.prediction import predicted_levels_db
 from rtvoice.ui.session import Slot
 from rtvoice.ui.widgets.string_view import OTHER_PICKUP_MARK
+
+pytestmark = pytest.mark.usefixtures("home")  # a user folder of its own for every test (conftest.py)
 
 # Point pickups (no aperture): the pickup at 1/n of the string leaves out every n-th harmonic, since
 # its weight sin(k pi x) is zero there (Paiva, Pakarinen & Valimaki, "Acoustics and Modeling of

@@ -4,12 +4,14 @@ A/B slots flip while a note rings; quitting asks only when something is unsaved.
 from __future__ import annotations
 
 import pytest
-from test_ui_helpers import fresh, home, link, run, screen_text, wait_for  # noqa: F401 - home and link are shared fixtures
+from support.ui import fresh, run, screen_text, wait_for
 
 from rtvoice.engine.settings import Settings
 from rtvoice.ui.app import RtvoiceApp
 from rtvoice.ui.screens.dialogs import AskScreen, PromptScreen
 from rtvoice.ui.widgets.status import MODIFIED_MARK
+
+pytestmark = pytest.mark.usefixtures("home")  # a user folder of its own for every test (conftest.py)
 
 
 async def type_value(pilot, app, name: str, text: str):

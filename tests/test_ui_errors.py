@@ -5,7 +5,7 @@ with the unsaved sound kept and offered back at the next start."""
 from __future__ import annotations
 
 import pytest
-from test_ui_helpers import fresh, home, link, run, screen_text, wait_for  # noqa: F401 - home and link are shared fixtures
+from support.ui import fresh, run, wait_for
 
 from rtvoice.engine import presets
 from rtvoice.ui import recovery
@@ -14,6 +14,8 @@ from rtvoice.ui.guard import ui_log_path
 from rtvoice.ui.screens import survey as survey_screen
 from rtvoice.ui.screens.dialogs import AskScreen
 from rtvoice.ui.screens.survey import SurveyScreen
+
+pytestmark = pytest.mark.usefixtures("home")  # a user folder of its own for every test (conftest.py)
 
 
 def test_the_map_opens_over_pickup_positions_only_when_a_pluck_shape_is_set(link):

@@ -4,7 +4,7 @@ the keys of the screen in front."""
 from __future__ import annotations
 
 import pytest
-from test_ui_helpers import fresh, home, link, run, screen_text  # noqa: F401 - home and link are shared fixtures
+from support.ui import fresh, run, screen_text
 from textual.widgets import Input
 
 from rtvoice.engine import presets
@@ -13,6 +13,8 @@ from rtvoice.ui.screens.dialogs import PromptScreen
 from rtvoice.ui.screens.notes import help_text
 from rtvoice.ui.screens.presets import PresetScreen
 from rtvoice.ui.words import display_name, said_value
+
+pytestmark = pytest.mark.usefixtures("home")  # a user folder of its own for every test (conftest.py)
 
 
 def test_every_arrow_press_moves_the_pickup_one_millimetre_even_in_a_burst(link):

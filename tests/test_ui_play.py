@@ -8,13 +8,16 @@ import signal
 import threading
 import tomllib
 
-from test_ui_helpers import fresh, home, link, run, screen_text, start_link, wait_for  # noqa: F401 - home and link are shared fixtures
+import pytest
+from support.ui import fresh, run, screen_text, start_link, wait_for
 
 from rtvoice.ui.app import RtvoiceApp
 from rtvoice.ui.keyboard import ROWS
 from rtvoice.ui.priority import lower_ui_thread_priority, normal_priority_spawner
 from rtvoice.ui.screens.dialogs import PromptScreen
 from rtvoice.ui.screens.notes import HelpScreen, SafetyScreen
+
+pytestmark = pytest.mark.usefixtures("home")  # a user folder of its own for every test (conftest.py)
 
 
 def test_keys_pluck_notes_octave_keys_shift_them_and_space_mutes_everything(link):

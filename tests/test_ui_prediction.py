@@ -20,6 +20,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 import scipy.signal
+from support.describe import failing
 
 from rtvoice.engine.renderer import OUTPUT_SCALE
 from rtvoice.engine.settings import Settings
@@ -72,14 +73,19 @@ def test_predicted_levels_follow_the_published_formulas(changes, note, velocity)
     audible = ref > -150
     assert audible.sum() >= 40
     np.testing.assert_allclose(ours[audible], ref[audible], atol=1e-6)
-    assert np.all(ours[~audible] < -150)
+    assert np.all(ours[~audible] < -150), \
+        "where the reference is below -150 dB: " + failing(ours[~audible] < -150, ours[~audible],
+                                                           np.flatnonzero(~audible) + 1, "harmonics")
 
 
 def test_a_pluck_at_the_middle_predicts_no_even_harmonics():
     """sin(k pi / 2) = 0 for even k (Fletcher & Rossing 1998): a mid-string pluck has only odd ones."""
     s = Settings.defaults().with_values({"excitation.position": 0.5, "excitation.width": 0.0})
     levels = predicted_levels_db(s, 45, 32)
-    assert np.all(levels[1::2] <= FLOOR_DB) and np.all(levels[0::2] > -120)
+    k = np.arange(1, levels.size + 1)
+    assert np.all(levels[1::2] <= FLOOR_DB) and np.all(levels[0::2] > -120), (
+        f"even harmonics, want <= {FLOOR_DB} dB: {failing(levels[1::2] <= FLOOR_DB, levels[1::2], k[1::2])}; "
+        f"odd ones, want > -120 dB: {failing(levels[0::2] > -120, levels[0::2], k[0::2])}")
 
 
 def test_modes_at_or_above_045_of_the_sample_rate_predict_nothing():
@@ -88,5 +94,9 @@ def test_modes_at_or_above_045_of_the_sample_rate_predict_nothing():
     levels = predicted_levels_db(s, 100, 96, sample_rate_hz=48000.0)  # E7, 2637 Hz: k = 9 is 23.7 kHz
     k = np.arange(1, 97)
     f = k * 440 * 2 ** ((100 - 69) / 12) * np.sqrt(1 + 1e-4 * k**2)
-    assert np.all(levels[f >= 0.45 * 48000] <= FLOOR_DB)
-    assert np.all(levels[(f < 0.45 * 48000) & (k % 5 != 0)] > -150)  # (k = 5: the pluck's own null at L/5)
+    above = f >= 0.45 * 48000
+    assert np.all(levels[above] <= FLOOR_DB), \
+        f"at or above 0.45 fs, want <= {FLOOR_DB} dB: " + failing(levels[above] <= FLOOR_DB, levels[above], k[above])
+    below = (f < 0.45 * 48000) & (k % 5 != 0)  # (k = 5: the pluck's own null at L/5)
+    assert np.all(levels[below] > -150), "below 0.45 fs, want > -150 dB: " + failing(levels[below] > -150,
+                                                                                     levels[below], k[below])

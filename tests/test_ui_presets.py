@@ -8,7 +8,7 @@ import tomllib
 from pathlib import Path
 
 import pytest
-from test_ui_helpers import fresh, home, link, run, screen_text, wait_for  # noqa: F401 - home and link are shared fixtures
+from support.ui import fresh, run, screen_text, wait_for
 
 from rtvoice.engine import presets
 from rtvoice.engine.settings import Settings
@@ -16,6 +16,8 @@ from rtvoice.ui.app import RtvoiceApp
 from rtvoice.ui.screens.dialogs import AskScreen, PromptScreen
 from rtvoice.ui.screens.presets import PresetScreen
 from rtvoice.ui.widgets.status import MODIFIED_MARK
+
+pytestmark = pytest.mark.usefixtures("home")  # a user folder of its own for every test (conftest.py)
 
 
 async def open_and_load(pilot, app, filter_text: str) -> None:

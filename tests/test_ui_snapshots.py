@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from test_ui_helpers import fresh, home, link  # noqa: F401 - home and link are shared fixtures
+from support.ui import fresh
 from textual.widgets import Input
 
 from rtvoice.engine import presets
@@ -18,6 +18,8 @@ from rtvoice.engine.renderer import Engine
 from rtvoice.engine.settings import Settings
 from rtvoice.host.link import Snapshot
 from rtvoice.ui.app import RtvoiceApp
+
+pytestmark = pytest.mark.usefixtures("home")  # a user folder of its own for every test (conftest.py)
 
 BLOCKS = 20  # about 0.1 s of E2 at 48 kHz, 256-frame blocks
 

@@ -4,11 +4,13 @@ import asyncio
 
 import numpy as np
 import pytest
-from test_ui_helpers import fresh, home, link, wait_for  # noqa: F401 - home and link are shared fixtures
+from support.ui import fresh, wait_for
 
 from rtvoice.survey import survey_grid
 from rtvoice.ui.app import RtvoiceApp
 from rtvoice.ui.screens.survey import SHADES, SurveyScreen, map_grids
+
+pytestmark = pytest.mark.usefixtures("home")  # a user folder of its own for every test (conftest.py)
 
 
 def test_map_cursor_moves_the_live_pickup_and_pluck(link):

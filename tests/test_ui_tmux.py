@@ -15,8 +15,8 @@ import subprocess
 import sys
 import time
 
-import jackutil
 import pytest
+from support.jack_server import connect, list_ports, wait_for_ports
 
 pytestmark = [pytest.mark.jack, pytest.mark.slow]
 
@@ -88,11 +88,11 @@ def test_rtvoice_in_tmux_shows_the_bars_rise_for_a_midi_note(jack_server, tmp_pa
         assert live_cells(bar_rows(before)) == 0  # nothing rings yet
 
         midi_in = f"{client}-midi:in"
-        jackutil.wait_for_ports(f"^{re.escape(midi_in)}$", timeout_s=10)
+        wait_for_ports(f"^{re.escape(midi_in)}$", timeout_s=10)
         sender = rtmidi.MidiOut(rtmidi.API_UNIX_JACK, name=f"{client}-send")
         sender.open_virtual_port("out")
-        jackutil.wait_for_ports(f"^{re.escape(client)}-send:out$", timeout_s=10)
-        jackutil.connect(f"{client}-send:out", midi_in)
+        wait_for_ports(f"^{re.escape(client)}-send:out$", timeout_s=10)
+        connect(f"{client}-send:out", midi_in)
         time.sleep(0.3)
         sender.send_message([0x90, 52, 110])  # E3
         ringing = wait_screen(session_name, r"ringing E3")
@@ -117,9 +117,9 @@ def test_rtvoice_in_tmux_shows_the_bars_rise_for_a_midi_note(jack_server, tmp_pa
         else:
             raise AssertionError(f"rtvoice did not quit:\n{screen(session_name)}")
         deadline = time.monotonic() + 10  # and the engine process went with it
-        while time.monotonic() < deadline and jackutil.list_ports(f"^{re.escape(client)}:"):
+        while time.monotonic() < deadline and list_ports(f"^{re.escape(client)}:"):
             time.sleep(0.1)
-        assert not jackutil.list_ports(f"^{re.escape(client)}:")
+        assert not list_ports(f"^{re.escape(client)}:")
     finally:
         if sender is not None:
             sender.close_port()

@@ -1,15 +1,18 @@
-"""Helpers for the UI tests (no tests here): the engine link they drive, screen text, waiting.
+"""Helpers for the UI tests: the engine link they drive, screen text, waiting.
 
 The UI tests drive the real :class:`rtvoice.host.link.EngineLink`: the engine runs in
 its own process on a silent real-time clock (``audio_device="none"``, ``midi_in="none"``),
-exactly as ``rtvoice play --audio-device none`` runs it.
+exactly as ``rtvoice play --audio-device none`` runs it. Their shared fixtures (``link``, one
+engine link a module, and ``home``, a user folder a test) are in ``tests/conftest.py``.
 """
 
 from __future__ import annotations
 
 import asyncio
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Coroutine
+from pathlib import Path
+from typing import Any, TypeVar
 
 import pytest
 
@@ -19,8 +22,11 @@ from rtvoice.host.link import EngineLink
 
 WAIT_S = 10.0
 
+T = TypeVar("T")
+
 
 def start_link(settings: Settings | None = None) -> EngineLink:
+    """A started engine link on the silent clock, with no MIDI input."""
     link = EngineLink(settings or Settings.defaults(), audio_device="none", midi_in="none")
     link.start()
     return link
@@ -51,28 +57,12 @@ async def wait_for(pilot, condition: Callable[[], bool], timeout_s: float = WAIT
     return condition()
 
 
-def user_home(tmp_path, monkeypatch):
+def user_home(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> Path:
     """A user data folder of the test's own (presets and the remembered listening note)."""
     monkeypatch.setenv("RTVOICE_HOME", str(tmp_path))
     return tmp_path
 
 
-def run(coro):
+def run(coro: Coroutine[Any, Any, T]) -> T:
+    """Run a test's async body (the app under Textual's pilot) to its end."""
     return asyncio.run(coro)
-
-
-# Fixtures shared by the UI test modules, which import them by name: each module gets its own
-# engine link (module scope) and every test its own user folder.
-@pytest.fixture(scope="module")
-def link():
-    lk = start_link()
-    yield lk
-    lk.close()
-
-
-@pytest.fixture(autouse=True)
-def home(tmp_path, monkeypatch):
-    return user_home(tmp_path, monkeypatch)
-
-
-__all__ = ["fresh", "run", "screen_text", "start_link", "user_home", "wait_for"]
