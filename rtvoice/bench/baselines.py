@@ -26,8 +26,8 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.signal
 
+from rtvoice.engine import Engine, sounding_partials
 from rtvoice.engine.output import Limiter, dc_blocker, electronics_filter
-from rtvoice.engine.renderer import OUTPUT_SCALE, Engine
 from rtvoice.physics.damping import loss_coefficients
 
 
@@ -42,6 +42,7 @@ class Partials:
     amplitude: np.ndarray
     pole: np.ndarray
     sample_rate_hz: float
+    freqs_hz: np.ndarray | None = None  # each mode's frequency (the first mode tunes a delay-line string)
 
     @property
     def voices(self) -> int:
@@ -54,11 +55,8 @@ class Partials:
 
 def partials_of(engine: Engine) -> Partials:
     """The engine's sounding modes now (after the blocks it has rendered)."""
-    pool = engine.pool
-    n = pool.n_active
-    amplitude = pool.g[:n] * pool.s[:n] * OUTPUT_SCALE
-    pole = np.exp((-pool.sigma[:n] + 1j * pool.omega[:n]) / engine.fs)
-    return Partials(amplitude.copy(), pole, engine.fs)
+    amplitude, pole, freqs_hz = sounding_partials(engine)
+    return Partials(amplitude, pole, engine.fs, freqs_hz)
 
 
 class OutputChain:
@@ -208,10 +206,10 @@ class KarplusStrongBank:
         b1, b3 = loss_coefficients(settings.get("string.t60_low"), settings.get("string.t60_high"))
         beta = settings.get("excitation.position")
         self.block = engine.block
-        pool = engine.pool
         self.strings = []
+        assert partials.freqs_hz is not None, "partials_of gives each mode's frequency"
         for v in range(partials.voices):
-            f1 = pool.omega[v, 0] / (2 * np.pi)
+            f1 = partials.freqs_hz[v, 0]  # set by partials_of
             self.strings.append(make_string(partials.amplitude[v], f1, b1, b3, beta, fs, engine.block))
         self._out = np.zeros(engine.block)
 

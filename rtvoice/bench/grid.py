@@ -7,7 +7,7 @@ from dataclasses import dataclass
 from rtvoice.bench.limits import BareProduct, factored_product
 from rtvoice.bench.scenes import SAMPLE_RATE_HZ, HeldChord, chord_events, feature_settings
 from rtvoice.bench.timing import Timing, time_calls, time_in_turns
-from rtvoice.engine.renderer import Engine
+from rtvoice.engine import Engine
 
 
 def block_period_us(block_frames: int, sample_rate_hz: float = SAMPLE_RATE_HZ) -> float:

@@ -20,7 +20,7 @@ from rtvoice.bench.songs import (
     song_length_s,
     startup_time,
 )
-from rtvoice.engine.settings import Settings
+from rtvoice.engine import Settings
 
 TARGET_BLOCK = 128
 TARGET_VOICES, TARGET_MODES, TARGET_LOAD = 64, 128, 0.20

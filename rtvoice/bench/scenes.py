@@ -10,8 +10,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-from rtvoice.engine.renderer import Engine
-from rtvoice.engine.settings import Settings
+from rtvoice.engine import Engine, Settings
 
 SAMPLE_RATE_HZ = 48000
 NOTE_ON = 0x90

@@ -13,8 +13,7 @@ import numpy as np
 
 from rtvoice.bench.scenes import SAMPLE_RATE_HZ, chord_events, feature_settings
 from rtvoice.bench.timing import summarize, wall_seconds
-from rtvoice.engine.renderer import Engine
-from rtvoice.engine.settings import Settings
+from rtvoice.engine import Engine, Settings
 from rtvoice.offline.midifile import read_midi_events
 from rtvoice.offline.render import render_events
 from rtvoice.procutil import stop_process

@@ -24,9 +24,11 @@ from operator import itemgetter  # noqa: E402
 
 import numpy as np  # noqa: E402
 
-from rtvoice.engine import midi  # noqa: E402
-from rtvoice.engine.renderer import Engine  # noqa: E402
-from rtvoice.engine.settings import SettingsError  # noqa: E402
+from rtvoice.engine import (
+    Engine,  # noqa: E402
+    SettingsError,  # noqa: E402
+    midi,  # noqa: E402
+)
 from rtvoice.host import cpu_wakeup, heap  # noqa: E402
 from rtvoice.host.audio import request_realtime_priority  # noqa: E402
 from rtvoice.host.board import Board  # noqa: E402

@@ -19,8 +19,7 @@ from typing import Any
 
 import numpy as np
 
-from rtvoice.engine.controls import check_entries
-from rtvoice.engine.settings import Settings, SettingsError
+from rtvoice.engine import Settings, SettingsError, check_entries
 from rtvoice.host.board import SILENT_DB, SPECTRUM_BINS, Board
 from rtvoice.host.errors import HostError, MidiMessageError
 from rtvoice.host.options import parse_mpe

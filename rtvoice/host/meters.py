@@ -10,8 +10,7 @@ import math
 
 import numpy as np
 
-from rtvoice.engine.renderer import OUTPUT_SCALE, Engine
-from rtvoice.engine.voices import FADING
+from rtvoice.engine import Engine, VoiceReadout, loudest_voice_into
 from rtvoice.host.board import MAX_MODES, SILENT_DB, SPECTRUM_BINS, Board
 from rtvoice.host.ring import SampleRing
 
@@ -71,26 +70,15 @@ class VoiceStage:
         self._halves = [{"levels": np.zeros(MAX_MODES), "freqs": np.zeros(MAX_MODES), "n": 0, "note": -1,
                          "velocity": 0, "voices": 0} for _ in range(2)]
         self._ready = 0
-        self._work = np.zeros(MAX_MODES, complex)  # |g s| of the loudest voice's modes, worked out here
-        self._mag = np.zeros(MAX_MODES)
+        self._work = np.zeros(MAX_MODES, complex)  # scratch for the engine's read-out
+        self._readout = VoiceReadout()
 
     def stage(self, engine: Engine, host_gain: float) -> None:
         """Copy the loudest voice's |g s| per mode in output units (callback side)."""
-        pool = engine.pool
-        n = pool.n_active
         half = self._halves[1 - self._ready]
-        if n == 0:
-            half["n"], half["note"], half["voices"], half["velocity"] = 0, -1, 0, 0
-        else:
-            v = engine.loudest_voice()
-            m = min(pool.modes, MAX_MODES)
-            gain = OUTPUT_SCALE * 10 ** (engine.settings.get("output.gain_db") / 20) * host_gain
-            np.multiply(pool.g[v, :m], pool.s[v, :m], out=self._work[:m])
-            np.abs(self._work[:m], out=self._mag[:m])
-            np.multiply(self._mag[:m], gain, out=half["levels"][:m])
-            np.multiply(pool.omega[v, :m], 1 / (2 * np.pi), out=half["freqs"][:m])
-            half["n"], half["note"], half["velocity"] = m, int(pool.note[v]), int(pool.velocity[v])
-            half["voices"] = int(np.count_nonzero(pool.state[:n] != FADING))
+        gain = 10 ** (engine.settings.get("output.gain_db") / 20) * host_gain
+        r = loudest_voice_into(engine, half["levels"], half["freqs"], self._work, gain, self._readout)
+        half["n"], half["note"], half["velocity"], half["voices"] = r.modes, r.note, r.velocity, r.voices
         self._ready = 1 - self._ready
 
     def current(self) -> dict:

@@ -23,8 +23,8 @@ from pathlib import Path
 
 import numpy as np
 
+from rtvoice.engine import Settings, apply_assignments
 from rtvoice.engine.presets import load_preset
-from rtvoice.engine.settings import Settings, apply_assignments
 from rtvoice.offline.commands import (
     PROGRESS_ABOVE_S,
     RenderError,

@@ -11,6 +11,7 @@ from pathlib import Path
 
 import numpy as np
 
+from rtvoice.engine import Settings, apply_assignments
 from rtvoice.engine.presets import (
     PresetError,
     list_presets,
@@ -18,7 +19,6 @@ from rtvoice.engine.presets import (
     preset_text,
     read_preset_file,
 )
-from rtvoice.engine.settings import Settings, apply_assignments
 from rtvoice.engine.units import parse_note
 from rtvoice.errors import UserError
 from rtvoice.offline.midifile import read_midi_events

@@ -7,8 +7,7 @@ from collections.abc import Callable, Iterator, Sequence
 
 import numpy as np
 
-from rtvoice.engine.renderer import Engine
-from rtvoice.engine.settings import Settings
+from rtvoice.engine import Engine, Settings
 
 DEFAULT_TAIL_CAP_S = 30.0
 

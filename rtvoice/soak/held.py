@@ -29,8 +29,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from rtvoice.engine.settings import Settings
-from rtvoice.engine.voices import HELD
+from rtvoice.engine import Settings, held_voice, modes_per_voice, voice_amplitudes
 from rtvoice.physics.damping import decay_rate_per_s, loss_coefficients
 from rtvoice.physics.excitation import pluck_amplitudes
 from rtvoice.physics.modes import NYQUIST_MARGIN, mode_frequencies_hz
@@ -152,11 +151,7 @@ class HeldNote:
 
     @staticmethod
     def find_slot(engine) -> int:
-        pool = engine.pool
-        n = pool.n_active
-        hit = np.flatnonzero((pool.note[:n] == HELD_NOTE) & (pool.channel[:n] == HELD_CHANNEL)
-                             & (pool.state[:n] == HELD))
-        return int(hit[0]) if hit.size == 1 else -1
+        return held_voice(engine, HELD_NOTE, HELD_CHANNEL)
 
     def check(self, engine, block_index: int) -> None:
         """Compare the held voice after block ``block_index`` has been rendered."""
@@ -164,10 +159,10 @@ class HeldNote:
         if seg is None or seg.cut_short or seg.ended:
             return
         slot = self.find_slot(engine)
-        if slot < 0 or engine.pool.modes != seg.modes:
+        if slot < 0 or modes_per_voice(engine) != seg.modes:
             seg.cut_short = True
             return
-        s = engine.pool.s[slot].copy()
+        s = voice_amplitudes(engine, slot)
         lam = -seg.sigma + 1j * seg.omega
         t_since_on = (block_index + 1 - seg.start_block) * self.block / self.fs
         live = np.abs(seg.s0) * np.exp(-seg.sigma * t_since_on) >= MEASURABLE

@@ -17,10 +17,8 @@ from dataclasses import asdict, dataclass, field
 
 import numpy as np
 
-from rtvoice.engine.output import CEILING
+from rtvoice.engine import CEILING, Engine, Settings, SettingsError
 from rtvoice.engine.presets import list_presets, load_preset
-from rtvoice.engine.renderer import Engine
-from rtvoice.engine.settings import Settings, SettingsError
 from rtvoice.soak.held import HeldNote
 from rtvoice.soak.memory import MemorySampler
 from rtvoice.soak.traffic import RandomTraffic

@@ -36,7 +36,7 @@ from pathlib import Path
 
 import numpy as np
 
-from rtvoice.engine.output import CEILING
+from rtvoice.engine import CEILING
 from rtvoice.soak.held import HELD_NOTE
 from rtvoice.soak.memory import rss_bytes, slope_kb_per_min
 from rtvoice.soak.traffic import HELD_CHANNEL, RandomTraffic, TrafficRates

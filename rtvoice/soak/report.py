@@ -5,7 +5,7 @@ from __future__ import annotations
 import json
 import math
 
-from rtvoice.engine.output import CEILING
+from rtvoice.engine import CEILING
 from rtvoice.soak.offline import RSS_LIMIT_KB_PER_MIN, TRACED_LIMIT_KB_PER_MIN, OfflineResult
 from rtvoice.soak.realtime import RealtimeResult
 

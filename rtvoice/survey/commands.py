@@ -8,7 +8,7 @@ import sys
 import time
 from pathlib import Path
 
-from rtvoice.engine.renderer import Engine
+from rtvoice.engine import Engine
 from rtvoice.offline.commands import add_sound_options, output_path, settings_from_args
 from rtvoice.offline.render import text_progress
 from rtvoice.survey.descriptors import DEFAULT_MISSING_BELOW_DB

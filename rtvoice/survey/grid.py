@@ -12,7 +12,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from rtvoice.engine.settings import Settings
+from rtvoice.engine import Settings
 from rtvoice.survey.descriptors import DEFAULT_MISSING_BELOW_DB, describe, level_db, window_factor
 from rtvoice.survey.inputs import Placement, SurveyError, check_length
 from rtvoice.survey.model import SENSINGS, EngineModel, NoteModes

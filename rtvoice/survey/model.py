@@ -16,9 +16,8 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.signal
 
+from rtvoice.engine import OUTPUT_SCALE, Engine, Settings
 from rtvoice.engine.output import dc_blocker, electronics_filter
-from rtvoice.engine.renderer import OUTPUT_SCALE, Engine
-from rtvoice.engine.settings import Settings
 from rtvoice.physics.damping import decay_rate_per_s, loss_coefficients
 from rtvoice.physics.modes import mode_frequencies_hz, playable_mode_count
 from rtvoice.physics.pickup import pickup_weights

@@ -6,7 +6,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from rtvoice.engine.settings import Settings
+from rtvoice.engine import Settings
 from rtvoice.survey.inputs import Placement
 
 

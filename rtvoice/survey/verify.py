@@ -19,9 +19,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from rtvoice.engine import midi
-from rtvoice.engine.renderer import Engine
-from rtvoice.engine.settings import Settings
+from rtvoice.engine import Engine, Settings, midi
 from rtvoice.procutil import scoped_environ
 from rtvoice.survey.descriptors import describe, window_factor
 from rtvoice.survey.model import EngineModel

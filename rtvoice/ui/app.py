@@ -22,8 +22,8 @@ from textual.binding import Binding
 from textual.screen import ModalScreen
 from textual.widgets import ContentSwitcher, Footer, Input
 
+from rtvoice.engine import Settings, SettingsError, apply_assignments
 from rtvoice.engine.schema import MAX_PICKUPS, lookup
-from rtvoice.engine.settings import Settings, SettingsError, apply_assignments
 from rtvoice.ui import userstate
 from rtvoice.ui.compare import SlotComparison, compare_slots
 from rtvoice.ui.format import note_name

@@ -12,7 +12,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from rtvoice.engine.settings import Settings
+from rtvoice.engine import Settings
 from rtvoice.physics.tuning import midi_note_to_hz
 from rtvoice.ui.prediction import FLOOR_DB, harmonic_frequencies_hz, predicted_levels_db
 

@@ -12,9 +12,8 @@ import math
 
 import numpy as np
 
+from rtvoice.engine import OUTPUT_SCALE, Settings
 from rtvoice.engine.notes import initial_amplitudes
-from rtvoice.engine.renderer import OUTPUT_SCALE
-from rtvoice.engine.settings import Settings
 from rtvoice.physics.damping import decay_rate_per_s, loss_coefficients
 from rtvoice.physics.electronics import lowpass_response, rlc_resonance
 from rtvoice.physics.modes import NYQUIST_MARGIN, mode_frequencies_hz

@@ -9,8 +9,7 @@ A mixin for :class:`rtvoice.ui.app.RtvoiceApp`, which provides ``session``, ``sa
 
 from __future__ import annotations
 
-from rtvoice.engine import presets
-from rtvoice.engine.settings import SettingsError
+from rtvoice.engine import SettingsError, presets
 from rtvoice.ui.screens.dialogs import AskScreen, PromptScreen
 from rtvoice.ui.screens.presets import PresetChoice, PresetScreen
 

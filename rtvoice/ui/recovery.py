@@ -15,8 +15,7 @@ from pathlib import Path
 
 import tomli_w
 
-from rtvoice.engine import presets
-from rtvoice.engine.settings import Settings, SettingsError
+from rtvoice.engine import Settings, SettingsError, presets
 from rtvoice.ui.userstate import data_dir
 
 RECOVERY_FILE = "unsaved-sound.toml"

@@ -12,8 +12,7 @@ import warnings
 from dataclasses import dataclass, fields, replace
 from typing import Any
 
-from rtvoice.engine import presets
-from rtvoice.engine.settings import Settings, apply_assignments
+from rtvoice.engine import Settings, apply_assignments, presets
 
 SLOT_NAMES = ("A", "B")
 

@@ -9,8 +9,7 @@ from typing import Any
 
 import numpy as np
 
-from rtvoice.engine.controls import default_entries
-from rtvoice.engine.settings import Settings
+from rtvoice.engine import Settings, default_entries
 from rtvoice.errors import UserError
 from rtvoice.ui.prediction import FLOOR_DB, electronics_gain, to_db
 

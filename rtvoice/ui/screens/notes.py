@@ -8,7 +8,7 @@ from textual.containers import VerticalScroll
 from textual.screen import ModalScreen
 from textual.widgets import Button, Footer, Static
 
-from rtvoice.engine.output import CEILING_DBFS
+from rtvoice.engine import CEILING_DBFS
 from rtvoice.ui.guard import Guarded
 from rtvoice.ui.keyboard import OCTAVE_DOWN, OCTAVE_UP, layout_lines
 

@@ -14,7 +14,7 @@ from textual.containers import Vertical
 from textual.screen import ModalScreen
 from textual.widgets import Footer, Static
 
-from rtvoice.engine.settings import Settings
+from rtvoice.engine import Settings
 from rtvoice.survey import SurveyPlane, survey_grid
 from rtvoice.ui.format import note_name
 from rtvoice.ui.guard import Guarded

@@ -6,8 +6,8 @@ from textual.binding import Binding
 from textual.message import Message
 from textual.widgets import DataTable
 
+from rtvoice.engine import Settings
 from rtvoice.engine.schema import MAX_PICKUPS, lookup
-from rtvoice.engine.settings import Settings
 from rtvoice.ui.format import value_text
 from rtvoice.ui.guard import Guarded
 

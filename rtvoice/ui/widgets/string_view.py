@@ -15,8 +15,8 @@ from textual.binding import Binding
 from textual.message import Message
 from textual.widget import Widget
 
+from rtvoice.engine import Settings
 from rtvoice.engine.schema import lookup
-from rtvoice.engine.settings import Settings
 from rtvoice.ui.guard import Guarded
 
 BRIDGE_LABEL, NUT_LABEL = "bridge ", " nut"

@@ -1,0 +1,77 @@
+"""What the rest of rtvoice may read of a running engine: its loudest voice's modes for the meters,
+a held voice's state for the soak, the sounding partials for the bench's baselines.
+
+Only the engine's own modules touch the voice pool's arrays; everything outside reads through
+these functions (exported by :mod:`rtvoice.engine`). The meters' read-out runs inside the audio
+callback, so it writes into the caller's buffers and allocates nothing of its own.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from rtvoice.engine.renderer import OUTPUT_SCALE, Engine
+from rtvoice.engine.voices import FADING, HELD
+
+
+@dataclass
+class VoiceReadout:
+    """How many modes were written, and whose: the loudest voice's note and velocity, and how many
+    voices sound (not fading). ``modes == 0`` when nothing sounds."""
+
+    modes: int = 0
+    note: int = -1
+    velocity: int = 0
+    voices: int = 0
+
+
+def loudest_voice_into(engine: Engine, levels: np.ndarray, freqs_hz: np.ndarray, work: np.ndarray,
+                       gain: float, into: VoiceReadout) -> VoiceReadout:
+    """Write |g s| x OUTPUT_SCALE x ``gain`` of the loudest voice's first modes into ``levels`` and
+    their frequencies in Hz into ``freqs_hz`` (as many as the buffers hold); ``work`` is a complex
+    scratch buffer of the same length. Fills and returns ``into`` (callback side: no allocation
+    beyond numpy's scalars)."""
+    pool = engine.pool
+    n = pool.n_active
+    if n == 0:
+        into.modes, into.note, into.velocity, into.voices = 0, -1, 0, 0
+        return into
+    v = engine.loudest_voice()
+    m = min(pool.modes, levels.size)
+    np.multiply(pool.g[v, :m], pool.s[v, :m], out=work[:m])
+    np.abs(work[:m], out=levels[:m])
+    levels[:m] *= OUTPUT_SCALE * gain
+    np.multiply(pool.omega[v, :m], 1 / (2 * np.pi), out=freqs_hz[:m])
+    into.modes, into.note, into.velocity = m, int(pool.note[v]), int(pool.velocity[v])
+    into.voices = int(np.count_nonzero(pool.state[:n] != FADING))
+    return into
+
+
+def held_voice(engine: Engine, note: int, channel: int) -> int:
+    """Slot of the one voice holding ``note`` on ``channel`` under the sustain pedal, else -1."""
+    pool = engine.pool
+    n = pool.n_active
+    hit = np.flatnonzero((pool.note[:n] == note) & (pool.channel[:n] == channel) & (pool.state[:n] == HELD))
+    return int(hit[0]) if hit.size == 1 else -1
+
+
+def voice_amplitudes(engine: Engine, slot: int) -> np.ndarray:
+    """A copy of the complex mode amplitudes of voice ``slot`` (double precision)."""
+    return engine.pool.s[slot].copy()
+
+
+def modes_per_voice(engine: Engine) -> int:
+    """The pool's modes per voice (``string.modes`` as the pool was built)."""
+    return int(engine.pool.modes)
+
+
+def sounding_partials(engine: Engine) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(complex output amplitude, per-sample pole, frequency in Hz) of every mode of every active
+    voice, copies: what a modal sum of the same notes would start from (the bench's baselines)."""
+    pool = engine.pool
+    n = pool.n_active
+    amplitude = pool.g[:n] * pool.s[:n] * OUTPUT_SCALE
+    pole = np.exp((-pool.sigma[:n] + 1j * pool.omega[:n]) / engine.fs)
+    return amplitude.copy(), pole, pool.omega[:n] / (2 * np.pi)
