@@ -13,13 +13,7 @@ import importlib
 import sys
 import warnings
 
-#: Modules that add subcommands, in the order ``--help`` lists them.
-COMMAND_MODULES = [
-    "rtvoice.offline.commands",
-    "rtvoice.host.commands",
-    "rtvoice.bench.commands",
-    "rtvoice.survey.commands",
-]
+from rtvoice.commands import MODULES as COMMAND_MODULES  # in the order ``--help`` lists them
 
 EXIT_BAD_INPUT = 2
 

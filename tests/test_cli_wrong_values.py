@@ -169,8 +169,8 @@ def scratch(tmp_path, monkeypatch):
     # Fakes, on purpose: these calls are where real work (an engine process, minutes of benchmarks, a
     # survey) would begin; a wrong value must be refused before any of them, so each only fails the test.
     from rtvoice.bench import runner
+    from rtvoice.commands import survey as survey_commands
     from rtvoice.host import link
-    from rtvoice.survey import commands as survey_commands
 
     monkeypatch.setattr(link.EngineLink, "_spawn", tripwire("the engine process"))
     monkeypatch.setattr(link.EngineLink, "start", tripwire("the engine process"))

@@ -28,7 +28,7 @@ from rtvoice.engine.settings import Settings, SettingsError, apply_assignments
 from rtvoice.errors import NO_VALUE, UserError
 from rtvoice.host.errors import HostError, MidiMessageError
 from rtvoice.host.link import EngineLink
-from rtvoice.offline.commands import RenderError
+from rtvoice.offline.files import RenderError
 from rtvoice.offline.midifile import MidiFileError, read_midi_events
 from rtvoice.survey.inputs import SurveyError, parse_grid
 from rtvoice.ui.sync import EngineView

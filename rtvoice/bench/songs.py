@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import importlib
 import os
 import subprocess
 import sys
@@ -15,7 +16,7 @@ from rtvoice.bench.scenes import SAMPLE_RATE_HZ, chord_events, feature_settings
 from rtvoice.bench.timing import summarize, wall_seconds
 from rtvoice.engine import Engine, Settings
 from rtvoice.offline.midifile import read_midi_events
-from rtvoice.offline.render import render_events
+from rtvoice.offline.render import DEFAULT_RENDER_BLOCK, render_events
 from rtvoice.procutil import stop_process
 
 DEMO_SONG = Path(__file__).resolve().parents[2] / "examples" / "demo.mid"
@@ -133,22 +134,16 @@ def memory_per_voice(modes: int, block: int = 128, many: int = 128) -> dict:
 
 def render_default_block() -> int:
     """The block size ``rtvoice render`` uses when none is given (what an offline user gets)."""
-    from rtvoice.cli import build_parser
-
-    parser = build_parser()
-    render = parser._subparsers._group_actions[0].choices["render"]
-    return int(render.get_default("block"))
+    return DEFAULT_RENDER_BLOCK
 
 
 def play_command_available() -> bool:
-    from rtvoice.cli import build_parser
-
+    """Whether the live host can be started here (its engine process module imports)."""
     try:
-        parser = build_parser()
-    except Exception:  # noqa: BLE001 - a half-built host must not stop the benchmarks
+        importlib.import_module("rtvoice.host.engine_process")
+    except Exception:  # noqa: BLE001 - a broken host must not stop the other benchmarks
         return False
-    choices = parser._subparsers._group_actions[0].choices if parser._subparsers else {}
-    return "play" in choices
+    return True
 
 
 def startup_time(runs: int = 3, timeout_s: float = 30.0) -> dict:

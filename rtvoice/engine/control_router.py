@@ -16,22 +16,32 @@ the values that moved) goes into ``outbox`` as small dicts.
 from __future__ import annotations
 
 from collections import deque
-from typing import TYPE_CHECKING, Any
+from typing import Any, Protocol
 
 import numpy as np
 
 from rtvoice.engine.controls import ControlMap
-from rtvoice.engine.settings import SettingsError
+from rtvoice.engine.midi import ChannelState
+from rtvoice.engine.settings import Settings, SettingsError
 
-if TYPE_CHECKING:  # the engine imports this module; the router only calls it back
-    from rtvoice.engine.renderer import Engine
+
+class Engine(Protocol):
+    """What the router needs of the engine that owns it (the renderer imports this module, so the
+    router names the engine by what it does rather than importing it)."""
+
+    channels: ChannelState
+    settings: Settings
+
+    def excitation_initial(self, position: float, width: float) -> np.ndarray: ...
+
+    def apply_settings(self, settings: Settings) -> None: ...
 
 APPLY_EVERY_S = 0.004
 EXCITATION_CACHE = 512
 
 
 class ControlRouter:
-    def __init__(self, engine: Engine, controls: ControlMap, outbox: deque | None = None,
+    def __init__(self, engine: Engine, controls: ControlMap, outbox: deque[dict[str, Any]] | None = None,
                  every_s: float = APPLY_EVERY_S):
         self.engine = engine
         self.controls = controls

@@ -32,7 +32,7 @@ from collections.abc import Iterable, Mapping
 from typing import Any
 
 from rtvoice.engine import midi
-from rtvoice.engine.schema import lookup
+from rtvoice.engine.schema import SettingsError, lookup
 
 SOURCES = ("cc", "pressure", "note_timbre", "note_pressure")
 PER_NOTE_SOURCES = ("note_timbre", "note_pressure")
@@ -48,13 +48,11 @@ _KEYS = ("target", "source", "cc", "bits", "channel", "low", "high", "curve")
 
 
 def _error(key: str, value: Any, reason: str, source: str) -> Exception:
-    from rtvoice.engine.settings import SettingsError  # settings imports this module
-
     return SettingsError(key, value, reason, source)
 
 
 def _entry(target: str, cc: int | None = None, *, source: str = "cc", bits: int = 7,
-           low: float | None = None, high: float | None = None, curve: str | None = None) -> dict:
+           low: float | None = None, high: float | None = None, curve: str | None = None) -> dict[str, Any]:
     e: dict[str, Any] = {"target": target, "source": source}
     if cc is not None:
         e["cc"], e["bits"] = cc, bits
@@ -65,7 +63,7 @@ def _entry(target: str, cc: int | None = None, *, source: str = "cc", bits: int 
     return e
 
 
-DEFAULT_ENTRIES: tuple[dict, ...] = (
+DEFAULT_ENTRIES: tuple[dict[str, Any], ...] = (
     _entry("pickup.0.position", 1, bits=14, low=0.03, high=0.5),  # modulation wheel (CC1/33)
     _entry("output.gain_db", 7, bits=14, low=-60.0, high=0.0),  # channel volume (CC7/39)
     _entry("electronics.resonance_hz", 74, low=1000.0, high=12000.0, curve="log"),  # brightness
@@ -78,12 +76,12 @@ DEFAULT_ENTRIES: tuple[dict, ...] = (
 )
 
 
-def default_entries() -> list[dict]:
+def default_entries() -> list[dict[str, Any]]:
     """The default controller map, normalised."""
     return check_entries(DEFAULT_ENTRIES, source="default map")
 
 
-def check_entries(entries: Iterable[Mapping[str, Any]], source: str = "") -> list[dict]:
+def check_entries(entries: Iterable[Mapping[str, Any]], source: str = "") -> list[dict[str, Any]]:
     """Validate controller-map entries and fill in defaults; raises SettingsError naming the entry."""
     if isinstance(entries, Mapping | str | bytes):
         raise _error("control", entries, "expected a list of [[control]] tables", source)
@@ -95,7 +93,7 @@ def check_entries(entries: Iterable[Mapping[str, Any]], source: str = "") -> lis
     return out
 
 
-def _check_one(i: int, raw: Mapping[str, Any], source: str) -> dict:
+def _check_one(i: int, raw: Mapping[str, Any], source: str) -> dict[str, Any]:
     where = f"control.{i}"
     for key in raw:
         if key not in _KEYS:
@@ -176,7 +174,7 @@ def scale(entry: Mapping[str, Any], x: float) -> Any:
     return round(value) if param.kind == "int" else value
 
 
-def learned_entry(target: str, cc: int, channel: int) -> dict:
+def learned_entry(target: str, cc: int, channel: int) -> dict[str, Any]:
     """The entry made when controller ``cc`` on ``channel`` (0-15) is moved while learning ``target``."""
     return _check_one(0, {"target": target, "cc": cc, "bits": 14 if cc < 32 and cc + 32 not in RESERVED_CCS
                           else 7, "channel": channel + 1}, "learn")
@@ -191,7 +189,7 @@ class ControlMap:
 
     def __init__(self, entries: Iterable[Mapping[str, Any]] | None = None):
         self.learning: str | None = None
-        self.learned: dict | None = None
+        self.learned: dict[str, Any] | None = None
         self._msb = [[-1] * 32 for _ in range(16)]  # last MSB of each 14-bit pair, per channel
         self._note_timbre: list[float | None] = [None] * 16
         self._note_pressure: list[float | None] = [None] * 16
@@ -199,7 +197,7 @@ class ControlMap:
 
     def set_entries(self, entries: Iterable[Mapping[str, Any]]) -> None:
         self.entries = check_entries(entries, source="controls")
-        by_cc: dict[int, list[tuple[dict, str]]] = {}
+        by_cc: dict[int, list[tuple[dict[str, Any], str]]] = {}
         for e in self.entries:
             if e["source"] == "cc":
                 by_cc.setdefault(e["cc"], []).append((e, "msb" if e["bits"] == 14 else "7"))
@@ -209,7 +207,7 @@ class ControlMap:
         self._pressure = [e for e in self.entries if e["source"] == "pressure"]
         self._per_note = [e for e in self.entries if e["source"] in PER_NOTE_SOURCES]
 
-    def to_dicts(self) -> list[dict]:
+    def to_dicts(self) -> list[dict[str, Any]]:
         return [dict(e) for e in self.entries]
 
     def learn(self, target: str | None) -> None:
@@ -269,6 +267,7 @@ class ControlMap:
         return any(role == "lsb" for _, role in self._by_cc.get(cc, ()))
 
     def _learn(self, channel: int, cc: int) -> None:
+        assert self.learning is not None  # only called while learning
         entry = learned_entry(self.learning, cc, channel)
         kept = [e for e in self.entries if not self._replaced_by(e, entry, channel)]
         self.set_entries(kept + [entry])
@@ -276,11 +275,12 @@ class ControlMap:
         self.learned = entry
 
     @staticmethod
-    def _replaced_by(old: dict, new: dict, channel: int) -> bool:
+    def _replaced_by(old: dict[str, Any], new: dict[str, Any], channel: int) -> bool:
         """A learned entry replaces what drove the same parameter and what the same controller drove."""
         if old["target"] == new["target"] and old["source"] in ("cc", "pressure"):
             return True
         if old["source"] != "cc" or old.get("channel") not in (None, channel + 1):
             return False
         cc = new["cc"]
-        return old["cc"] == cc or (old["bits"] == 14 and old["cc"] + 32 == cc)
+        replaced: bool = old["cc"] == cc or (old["bits"] == 14 and old["cc"] + 32 == cc)
+        return replaced

@@ -11,6 +11,7 @@ from __future__ import annotations
 import difflib
 import math
 import re
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -33,6 +34,23 @@ class UnknownParameter(UserError, KeyError):
         super().__init__(reason, key=name if shown_name else "", suggestion=closest_name(name))
 
 
+class SettingsError(UserError, ValueError):
+    """A value that the schema does not allow, with where it came from (a ValueError too, as before).
+
+    The message is ``SOURCE: KEY = VALUE: REASON``, then ``(allowed: ...)`` and
+    ``(did you mean ...?)`` when those fields are set.
+    """
+
+    def __init__(self, key: str, value: Any, reason: str, source: str = "", *, allowed: str = "",
+                 suggestion: str = ""):
+        super().__init__(reason, source=source, key=key, value=value, allowed=allowed, suggestion=suggestion)
+
+    @classmethod
+    def unknown_name(cls, err: UnknownParameter, value: Any, source: str) -> SettingsError:
+        """The error for a name :func:`lookup` refused, given ``value`` in ``source``."""
+        return cls(err.name, value, err.reason, source, suggestion=err.suggestion)
+
+
 @dataclass(frozen=True)
 class Param:
     """One parameter: what it is, in which unit, what values it may take.
@@ -48,12 +66,12 @@ class Param:
     unit: str = ""
     low: float | None = None
     high: float | None = None
-    choices: tuple = ()
+    choices: tuple[Any, ...] = ()
     help: str = ""
     live: bool = False
     structural: bool = False
     log_scale: bool = False
-    extra: dict = field(default_factory=dict, compare=False)
+    extra: dict[str, Any] = field(default_factory=dict, compare=False)
 
     def check(self, value: Any) -> Any:
         """Return ``value`` normalised to this parameter's type, or raise ValueError.
@@ -229,7 +247,7 @@ ADDED_PICKUP_PLACES = (0.062, 0.154, 0.247, 0.33)
 PICKUP_SPACING = 0.03  # an added pickup keeps at least this far (a fraction) from the others
 
 
-def added_pickup(existing: list[dict[str, Any]]) -> dict[str, Any]:
+def added_pickup(existing: Sequence[Mapping[str, Any]]) -> dict[str, Any]:
     """A new pickup, at a place of its own: never stacked on a pickup already there."""
     taken = sorted(float(p["position"]) for p in existing)
     pickup = default_pickup()

@@ -11,15 +11,17 @@ from __future__ import annotations
 
 import math
 import tomllib
-from collections.abc import Iterable, Mapping
+from collections.abc import Callable, Iterable, Mapping
 from dataclasses import dataclass, replace
 from typing import Any
 
+from rtvoice.engine.controls import check_entries
 from rtvoice.engine.schema import (
     MAX_PICKUPS,
     PARAMS,
     PICKUP_FIELDS,
     TOP_LEVEL_TEXT,
+    Param,
     UnknownParameter,
     added_pickup,
     all_names,
@@ -27,8 +29,8 @@ from rtvoice.engine.schema import (
     default_pickup,
     lookup,
 )
+from rtvoice.engine.schema import SettingsError as SettingsError  # defined beside the schema, re-exported from here
 from rtvoice.engine.units import LENGTH_EXAMPLES, Length, fraction_of_string, length_within, parse_length
-from rtvoice.errors import UserError
 from rtvoice.physics.damping import loss_coefficients
 
 MAX_TEXT = 2000
@@ -40,23 +42,6 @@ INT64 = 2**63  # TOML 1.0: integers are 64-bit; larger ones "must" be an error
 MIN_RESONANCE_HZ = 200.0  # pickup resonances lie in the kHz range; 0 bypasses the filter
 MIN_INDUCTANCE_H = 0.01  # below this a "coil" is no pickup; 0 switches the circuit model off
 SCALE_KEY = "string.scale_length_mm"
-
-
-class SettingsError(UserError, ValueError):
-    """A value that the schema does not allow, with where it came from (a ValueError too, as before).
-
-    The message is ``SOURCE: KEY = VALUE: REASON``, then ``(allowed: ...)`` and
-    ``(did you mean ...?)`` when those fields are set.
-    """
-
-    def __init__(self, key: str, value: Any, reason: str, source: str = "", *, allowed: str = "",
-                 suggestion: str = ""):
-        super().__init__(reason, source=source, key=key, value=value, allowed=allowed, suggestion=suggestion)
-
-    @classmethod
-    def unknown_name(cls, err: UnknownParameter, value: Any, source: str) -> SettingsError:
-        """The error for a name :func:`lookup` refused, given ``value`` in ``source``."""
-        return cls(err.name, value, err.reason, source, suggestion=err.suggestion)
 
 
 @dataclass(frozen=True)
@@ -110,8 +95,6 @@ class Settings:
             elif top == "pickup":
                 pickups = _read_pickups(value, source, unknown)
             elif top == "control":
-                from rtvoice.engine.controls import check_entries
-
                 if not isinstance(value, list):
                     raise SettingsError("control", value, "expected [[control]] tables", source)
                 controls = tuple(check_entries(value, source))
@@ -166,7 +149,8 @@ class Settings:
         return Settings(self.values, self.pickups, name, self.description if description is None else description,
                         self.controls)
 
-    def _changed(self, changes, source, name, description, n_pickups=None) -> Settings:
+    def _changed(self, changes: dict[str, Any], source: str, name: str, description: str,
+                 n_pickups: int | None = None) -> Settings:
         changes = self._resolve_lengths(changes, source)
         values = dict(self.values)
         pickups = [dict(p) for p in self.pickups]
@@ -297,30 +281,33 @@ def _length(key: str, raw: str, source: str, what: str) -> Length:
         raise SettingsError(key, raw, reason, source) from None
 
 
-def _fraction_from_text(param, key: str, raw: str, scale_mm: float, source: str) -> float:
+def _fraction_from_text(param: Param, key: str, raw: str, scale_mm: float, source: str) -> float:
     """A position or width typed as a length, as a fraction of ``scale_mm``; refused in the typed unit."""
     length = _length(key, raw, source, f"a fraction of the length ({param.describe_range()})")
+    assert param.low is not None and param.high is not None  # positions and widths have a range in the schema
     try:
         return fraction_of_string(length, param.low, param.high, scale_mm)
     except ValueError as err:
         raise SettingsError(key, raw, str(err), source) from None
 
 
-def _checked_mm(param, key: str, raw: Any, source: str) -> float:
+def _checked_mm(param: Param, key: str, raw: Any, source: str) -> float:
     """A length in mm (a number, or text with its unit), checked against ``param``'s range in the typed unit."""
     if not isinstance(raw, str):
         try:
-            return param.check(raw)
+            mm: float = param.check(raw)  # a float parameter's check gives a float
+            return mm
         except (ValueError, OverflowError) as err:
             raise SettingsError(key, raw, str(err), source, allowed=param.describe_range()) from None
     length = _length(key, raw, source, "a number of millimetres")
+    assert param.low is not None and param.high is not None  # the scale length has a range in the schema
     try:
         return length_within(length, param.low, param.high)
     except ValueError as err:
         raise SettingsError(key, raw, str(err), source) from None
 
 
-def _read_pickups(value: Any, source: str, unknown) -> list[dict[str, Any]]:
+def _read_pickups(value: Any, source: str, unknown: Callable[[str, Any, str, str], None]) -> list[dict[str, Any]]:
     if not isinstance(value, list) or not all(isinstance(v, Mapping) for v in value):
         raise SettingsError("pickup", value, "expected [[pickup]] tables", source)
     if not 1 <= len(value) <= MAX_PICKUPS:

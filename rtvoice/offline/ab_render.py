@@ -25,14 +25,9 @@ import numpy as np
 
 from rtvoice.engine import Settings, apply_assignments
 from rtvoice.engine.presets import load_preset
-from rtvoice.offline.commands import (
-    PROGRESS_ABOVE_S,
-    RenderError,
-    output_path,
-    preset_arg,
-    write_blocks,
-)
-from rtvoice.offline.render import iter_blocks, text_progress
+from rtvoice.offline.files import RenderError, write_blocks
+from rtvoice.offline.options import output_path, preset_arg
+from rtvoice.offline.render import PROGRESS_ABOVE_S, iter_blocks, text_progress
 
 MAX_LISTED_DIFFERENCES = 8  # parameters named in the summary; the rest are counted
 

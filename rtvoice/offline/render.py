@@ -10,6 +10,8 @@ import numpy as np
 from rtvoice.engine import Engine, Settings
 
 DEFAULT_TAIL_CAP_S = 30.0
+DEFAULT_RENDER_BLOCK = 2048  # frames per block offline: nobody waits for a file, so fewer, larger blocks
+PROGRESS_ABOVE_S = 5.0  # a render longer than this shows a progress bar on a terminal
 
 
 def note_events(note: int, velocity: int, seconds: float, channel: int = 0) -> list[tuple[float, int, int, int]]:

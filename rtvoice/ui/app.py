@@ -50,6 +50,7 @@ from rtvoice.ui.words import display_name, said_value, xrun_note
 FRAME_RATE_HZ = 30.0
 METER_EVERY = 3  # numbers are read, not watched: 10 updates a second are plenty
 XRUN_NOTE_EVERY_S = 5.0  # a climbing xrun count is explained at most this often
+STARTUP_XRUNS_S = 2.0  # xruns in the UI's first seconds (the stream starting) are counted, not explained
 PREDICTED_MIN = 32  # harmonics predicted even when fewer fit on screen
 NO_NOTE_DEFAULT = 40  # E2: the note the bars predict for before anything is played
 VIEWS = ("harmonics", "spectrum", "compare")
@@ -247,6 +248,9 @@ class RtvoiceApp(AppGuard, PresetActions, App[int]):
         if xruns <= seen_xruns:
             return
         now = self.frames / self.frame_rate_hz
+        if said_at < 0 and now < STARTUP_XRUNS_S:  # a stream's first periods often drop one: not news
+            self._xrun_seen = (xruns, late, -1.0)
+            return
         if now - said_at < XRUN_NOTE_EVERY_S and said_at >= 0:
             return  # the count keeps climbing on the meters; the reason is said now and then
         self.say_error(xrun_note(xruns - seen_xruns, xruns, late - seen_late))

@@ -83,7 +83,7 @@ class SurveyScreen(Guarded, ModalScreen[None]):
 
     DEFAULT_CSS = """
     SurveyScreen { align: center middle; }
-    #survey-box { width: 70; max-width: 100%; height: auto; border: heavy $accent; padding: 0 1;
+    #survey-box { width: 86; max-width: 100%; height: auto; border: heavy $accent; padding: 0 1;
                   background: $panel; }
     """
     BINDINGS = [
@@ -116,8 +116,8 @@ class SurveyScreen(Guarded, ModalScreen[None]):
 
     def map_text(self) -> str:
         down = ("pluck (mm from the bridge) down" if self.pluck_free
-                else "one row: a pluck shape is set, so only the pickup moves")
-        lines = [f"note {note_name(self.note)}: pickup 1 across (bridge left), {down}",
+                else "one row: a pluck shape is set, only the pickup moves")
+        lines = [f"note {note_name(self.note)}: pickup 1 across, bridge left; {down}",
                  f"shade: centroid, '{SHADES[1]}' dull .. '{SHADES[-1]}' bright; [ ] cursor"]
         for r, text in enumerate(self.rows):
             left, right = (" ", " ") if r != self.row else ("[", "]")

@@ -4,12 +4,8 @@ from __future__ import annotations
 
 import argparse
 import math
-import os
 import sys
-import tempfile
 from pathlib import Path
-
-import numpy as np
 
 from rtvoice.engine import Settings, apply_assignments
 from rtvoice.engine.presets import (
@@ -20,19 +16,18 @@ from rtvoice.engine.presets import (
     read_preset_file,
 )
 from rtvoice.engine.units import parse_note
-from rtvoice.errors import UserError
+from rtvoice.offline import ab_render
+from rtvoice.offline.files import WAV_MAX_FRAMES, RenderError, write_blocks
 from rtvoice.offline.midifile import read_midi_events
-from rtvoice.offline.render import iter_blocks, longest_frames, note_events, text_progress
-from rtvoice.offline.wav import WavStreamWriter
-
-PROGRESS_ABOVE_S = 5.0
-#: A RIFF/WAVE file counts its data in a 32-bit field: at most 4 GiB of float32 samples, less the header.
-WAV_MAX_FRAMES = (2**32 - 1 - 64) // 4
-WRITE_EVERY_FRAMES = 1 << 16  # gather this much audio per write: fewer header rewrites
-
-
-class RenderError(UserError, ValueError):
-    """A render the command line refuses before starting (output place, length); ``source``: the file."""
+from rtvoice.offline.options import output_path, preset_arg
+from rtvoice.offline.render import (
+    DEFAULT_RENDER_BLOCK,
+    PROGRESS_ABOVE_S,
+    iter_blocks,
+    longest_frames,
+    note_events,
+    text_progress,
+)
 
 
 def register(sub: argparse._SubParsersAction) -> None:
@@ -44,9 +39,8 @@ def register(sub: argparse._SubParsersAction) -> None:
     r.add_argument("--velocity", type=_velocity, default=100, help="note-on velocity 1-127 (default 100)")
     r.add_argument("--seconds", type=_seconds, default=2.0, help="how long --note is held (default 2)")
     r.add_argument("-o", "--output", required=True, type=output_path, help="WAV file to write (32-bit float)")
-    add_sound_options(r, block=2048)
+    add_sound_options(r, block=DEFAULT_RENDER_BLOCK)
     r.add_argument("--tail-cap", type=_seconds, default=30.0, help="longest ring-out after the last event, s")
-    from rtvoice.offline import ab_render  # it builds on this module's writer: a top-level import would be circular
 
     ab_render.add_options(r)
     r.set_defaults(func=run_render)
@@ -78,7 +72,6 @@ def settings_from_args(args: argparse.Namespace) -> Settings:
 
 
 def run_render(args: argparse.Namespace) -> int:
-    from rtvoice.offline import ab_render  # see register
 
     settings = settings_from_args(args)
     pair = ab_render.plan_pair(args, settings)  # None unless a second sound is asked for; checks it first
@@ -105,76 +98,6 @@ def run_render(args: argparse.Namespace) -> int:
     peak_db = 20 * math.log10(peak) if peak > 0 else float("-inf")
     print(f"wrote {out} ({frames / args.rate:.2f} s, peak {peak_db:.1f} dBFS)")
     return 0
-
-
-def write_blocks(out: Path, blocks, rate: int) -> tuple[int, float]:
-    """Stream ``blocks`` into a float32 WAV beside ``out``, then rename it into place; (frames, peak).
-
-    Memory stays a few blocks for any length, and ``out`` appears only when the
-    render is whole: a failure or Ctrl-C removes the temporary file.
-    """
-    folder = out.parent if str(out.parent) else Path(".")
-    fd, tmp = tempfile.mkstemp(prefix=f".{out.name}.", suffix=".tmp", dir=folder)
-    os.close(fd)
-    mask = os.umask(0)
-    os.umask(mask)
-    os.chmod(tmp, 0o666 & ~mask)  # mkstemp makes 0600; a rendered WAV is an ordinary file
-    frames, peak, pending, held = 0, 0.0, [], 0
-    try:
-        with WavStreamWriter(tmp, rate) as writer:
-            for block in blocks:
-                pending.append(block.astype(np.float32))
-                held += len(block)
-                if held >= WRITE_EVERY_FRAMES:
-                    chunk = np.concatenate(pending)
-                    writer.write(chunk)
-                    peak = max(peak, float(np.max(np.abs(chunk))))
-                    frames, pending, held = frames + held, [], 0
-            if pending:
-                chunk = np.concatenate(pending)
-                writer.write(chunk)
-                peak = max(peak, float(np.max(np.abs(chunk))))
-                frames += held
-        os.replace(tmp, out)
-    except OSError as err:
-        _remove(tmp)
-        raise RenderError(f"cannot write {out}: {err.strerror or err}") from None
-    except BaseException:
-        _remove(tmp)
-        raise
-    return frames, peak
-
-
-def _remove(path: str) -> None:
-    try:
-        os.unlink(path)
-    except OSError:
-        pass
-
-
-def preset_arg(text: str) -> str:
-    """An argparse type for --preset: a name or a path, not blank (blank would silently mean the defaults)."""
-    if not text.strip():
-        raise argparse.ArgumentTypeError("expected a preset name or a path to a .toml file, got an empty one")
-    return text
-
-
-def output_path(text: str) -> str:
-    """An argparse type for a file to write: a name in an existing folder, not a folder itself."""
-    if not text or not text.strip():
-        raise argparse.ArgumentTypeError("expected a file name, got an empty one")
-    if "\0" in text:
-        raise argparse.ArgumentTypeError(f"{text!r} is not a usable file name")
-    path = Path(text)
-    try:
-        if path.is_dir() or text.endswith(("/", os.sep)):
-            raise argparse.ArgumentTypeError(f"{text} is a folder: give a file name inside it")
-        folder = path.parent if str(path.parent) else Path(".")
-        if not folder.is_dir():
-            raise argparse.ArgumentTypeError(f"{folder}: no such folder for the output file")
-    except OSError as err:  # a name the system refuses outright (too long, say)
-        raise argparse.ArgumentTypeError(f"{text[:60]}...: not a usable file name ({err.strerror})") from None
-    return text
 
 
 def run_list(args: argparse.Namespace) -> int:

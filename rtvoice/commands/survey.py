@@ -8,8 +8,9 @@ import sys
 import time
 from pathlib import Path
 
+from rtvoice.commands.render import add_sound_options, settings_from_args
 from rtvoice.engine import Engine
-from rtvoice.offline.commands import add_sound_options, output_path, settings_from_args
+from rtvoice.offline.options import output_path
 from rtvoice.offline.render import text_progress
 from rtvoice.survey.descriptors import DEFAULT_MISSING_BELOW_DB
 from rtvoice.survey.grid import (

@@ -17,7 +17,8 @@ MAX_CLIENT_NAME_BYTES = 63
 
 
 def register(sub: argparse._SubParsersAction) -> None:
-    from rtvoice.offline.commands import add_sound_options, output_path
+    from rtvoice.commands.render import add_sound_options
+    from rtvoice.offline.options import output_path
 
     p = sub.add_parser("play", help="play in real time from MIDI (the terminal UI unless --headless)")
     p.add_argument("--headless", action="store_true", help="no UI: a status line on stderr once a second")
@@ -89,7 +90,7 @@ def _duration(text: str) -> float:
 
 
 def make_link(args: argparse.Namespace, engine_log: str | None = None) -> EngineLink:
-    from rtvoice.offline.commands import settings_from_args
+    from rtvoice.commands.render import settings_from_args
 
     settings = settings_from_args(args)
     return EngineLink(settings, audio_device=args.audio_device, rate=args.rate, block=args.block,

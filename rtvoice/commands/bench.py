@@ -26,7 +26,7 @@ def host_minutes(text: str) -> float:
 
 
 def register(sub: argparse._SubParsersAction) -> None:
-    from rtvoice.offline.commands import output_path  # checked before minutes of measuring, not after
+    from rtvoice.offline.options import output_path  # checked before minutes of measuring, not after
 
     b = sub.add_parser("bench", help="measure engine cost beside the machine's limit and the baselines")
     b.add_argument("--quick", action="store_true", help="a smaller grid that finishes in under 30 s")
