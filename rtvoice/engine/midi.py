@@ -10,6 +10,7 @@ Channels are numbered 0..15 here (MIDI channel 1 is 0).
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 
 NOTE_OFF, NOTE_ON, POLY_PRESSURE, CONTROL_CHANGE = 0x80, 0x90, 0xA0, 0xB0
@@ -110,7 +111,7 @@ def data_length(status: int) -> int:
     return 1 if status & 0xF0 in (PROGRAM_CHANGE, CHANNEL_PRESSURE) else 2
 
 
-def channel_messages(data) -> list[tuple[int, int, int]]:
+def channel_messages(data: Sequence[int]) -> list[tuple[int, int, int]]:
     """The channel messages in one chunk of raw MIDI bytes, as (status, data1, data2).
 
     ``data`` is read as a MIDI 1.0 byte stream (MIDI 1.0 Detailed Specification): real-time

@@ -46,7 +46,7 @@ class ModalFilter:
     real, so the free part of Re(...) is the real part of the free state).
     """
 
-    def __init__(self, b, a, block_frames: int, order: int = 3):
+    def __init__(self, b: np.ndarray, a: np.ndarray, block_frames: int, order: int = 3) -> None:
         self.b, self.a = _padded(b, a, order)
         self.order, self.block = order, int(block_frames)
         self.d = self.b[0]
@@ -75,7 +75,7 @@ class ModalFilter:
     # -- steady response ----------------------------------------------------------
     def _denominator(self, p: np.ndarray) -> np.ndarray:
         """p^order A(1/p) = p^n + a1 p^(n-1) + ... + an, by Horner's rule."""
-        den = p + self.a[1]
+        den: np.ndarray = p + self.a[1]
         for coef in self.a[2:]:
             den = den * p + coef
         return den
@@ -93,7 +93,8 @@ class ModalFilter:
 
     def gain_from(self, r: np.ndarray) -> np.ndarray:
         """H(p) = C (p I - F)^{-1} e1 + D from :meth:`resolvent`'s ``r``."""
-        return r @ self.c + self.d
+        h: np.ndarray = r @ self.c + self.d
+        return h
 
     def gain(self, p: np.ndarray) -> np.ndarray:
         """H(p): the complex factor the filter applies to a mode p^n once it is under way."""
@@ -105,7 +106,8 @@ class ModalFilter:
 
         Shape c.shape[:-1] + (order,).
         """
-        return (c[..., None, :] @ r)[..., 0, :].real  # a matmul: a third of einsum's overhead on a few rows
+        x: np.ndarray = (c[..., None, :] @ r)[..., 0, :].real  # a matmul: a third of einsum's overhead on a few rows
+        return x
 
     # -- free response ------------------------------------------------------------
     def kick(self, dx: np.ndarray, at: int, out: np.ndarray) -> None:

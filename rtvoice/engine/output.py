@@ -114,7 +114,7 @@ CEILING_DBTP = -1.0  # the true-peak ceiling (EBU R128 / Tech 3341's maximum for
 #: span of a value that is not the loudest nearby, the interpolated output is not exactly gain
 #: times value (up to 0.002 dB seen). 0.05 dB covers both, and nobody hears it.
 TRUE_PEAK_MARGIN_DB = 0.05
-TRUE_PEAK_TARGET = 10.0 ** ((min(CEILING_DBFS, CEILING_DBTP) - TRUE_PEAK_MARGIN_DB) / 20.0)
+TRUE_PEAK_TARGET: float = 10.0 ** ((min(CEILING_DBFS, CEILING_DBTP) - TRUE_PEAK_MARGIN_DB) / 20.0)
 LOOKAHEAD_S = 1.5e-3  # the limiter's look-ahead: the engine's output is this much later
 RELEASE_S = 0.15
 

@@ -10,6 +10,7 @@ the same sum (checked against ``spatial_sums`` in the tests).
 from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
+from typing import Any
 
 import numpy as np
 
@@ -28,7 +29,7 @@ class _OnePickup:
         self.scaled_sinc = np.ones(k.shape)
         self.weight = np.zeros(k.shape)
 
-    def update(self, pickup: Mapping) -> bool:
+    def update(self, pickup: Mapping[str, Any]) -> bool:
         """Bring the cache up to ``pickup``; True when its weight changed."""
         position, width = pickup["position"], pickup["width"]
         level_db, polarity = pickup["level_db"], pickup["polarity"]
@@ -59,7 +60,7 @@ class PickupSums:
         self._cache: list[_OnePickup] = []
         self._sensing: list[str] = []
 
-    def update(self, pickups: Sequence[Mapping]) -> tuple[np.ndarray, np.ndarray]:
+    def update(self, pickups: Sequence[Mapping[str, Any]]) -> tuple[np.ndarray, np.ndarray]:
         """Sums for ``pickups`` (mappings with position, width, level_db, polarity, sensing)."""
         sensing = [p["sensing"] for p in pickups]
         changed = sensing != self._sensing

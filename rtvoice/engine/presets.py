@@ -201,8 +201,9 @@ def _newer_format(path: Path) -> int:
     except (OSError, UnicodeDecodeError, tomllib.TOMLDecodeError, RecursionError):
         return 0  # missing or unreadable: nothing this version could keep anyway
     value = data.get("format")
-    newer = isinstance(value, int) and not isinstance(value, bool) and value > PRESET_FORMAT
-    return value if newer else 0
+    if isinstance(value, int) and not isinstance(value, bool) and value > PRESET_FORMAT:
+        return value
+    return 0
 
 
 @contextlib.contextmanager
@@ -224,7 +225,7 @@ def _folder_lock(folder: Path) -> Iterator[None]:
 
 def remove_leftovers(folder: Path) -> list[str]:
     """Delete temporary files of saves that died before renaming; only call under the folder lock."""
-    removed = []
+    removed: list[str] = []
     if fcntl is None:
         return removed
     try:

@@ -59,7 +59,8 @@ def held_voice(engine: Engine, note: int, channel: int) -> int:
 
 def voice_amplitudes(engine: Engine, slot: int) -> np.ndarray:
     """A copy of the complex mode amplitudes of voice ``slot`` (double precision)."""
-    return engine.pool.s[slot].copy()
+    amplitudes: np.ndarray = engine.pool.s[slot].copy()
+    return amplitudes
 
 
 def modes_per_voice(engine: Engine) -> int:

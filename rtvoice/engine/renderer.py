@@ -114,7 +114,7 @@ class Engine:
         self._gain_ramp = np.empty(self.block)
         self.limiter = Limiter(self.fs, self.block)
         self.stats.latency_frames = self.limiter.latency_frames
-        self._filter: ModalFilter | None = None  # output scale, coil filter and DC blocker, on the modes
+        self._filter: ModalFilter  # output scale, coil filter and DC blocker, on the modes: _prepare_electronics
         self._gain = self._gain_target = 10 ** (self.settings.get("output.gain_db") / 20)
         self._pickups_now = [dict(p) for p in self.settings.pickups]
         self._pickups_settled = True  # now == target: the smoothing step has nothing to do
@@ -147,7 +147,8 @@ class Engine:
         self._touched_list: list[int] = []
         self._dirty = np.zeros(slots, bool)  # tables to rebuild (see _mark_tables)
         self._dirty_list: list[int] = []
-        self._changes: list[tuple] = []  # (slot, sample, kind, data) recorded by the first pass of a block
+        # (slot, sample, kind, data) recorded by the first pass of a block
+        self._changes: list[tuple[int, int, int, Any]] = []
         self._sample_index = np.arange(n1 * n2)
         self._ramp_ext = np.concatenate([self._ramp, np.ones(n1 * n2)])  # ramp[start + j], past the end too
         self._bound_block = -1  # the block in which pool.level was last refreshed for stealing (see _bounds)
@@ -194,7 +195,8 @@ class Engine:
         moving pickup's do), and the new filter carries on the old one's free response.
         """
         new = ModalFilter(*self.output_filter(), self.block)
-        old, self._filter = self._filter, new
+        old: ModalFilter | None = getattr(self, "_filter", None)  # None on the first call, from __init__
+        self._filter = new
         self._tables.clear()  # they hold the old filter's resolvents
         if old is None:
             return
@@ -239,7 +241,7 @@ class Engine:
         w += self._disp
         np.multiply(w, self.pool.h[:n], out=self._gf_next[:n])
 
-    def _set_weights(self, idx: np.ndarray) -> None:
+    def _set_weights(self, idx: slice | np.ndarray) -> None:
         """The pickup weights of slots ``idx`` (as :meth:`_ramp_weights`), now and as the ramp's target.
 
         Their product weights follow when their tables are rebuilt (:meth:`_flush_tables`).
@@ -264,7 +266,7 @@ class Engine:
         pool.gf[slots] = pool.g[slots] * pool.h[slots]
         self._gf_next[slots] = self._g_next[slots] * pool.h[slots]
 
-    def _steady_states(self, idx: np.ndarray) -> np.ndarray:
+    def _steady_states(self, idx: slice | np.ndarray) -> np.ndarray:
         """The output filter's steady state of each slot in ``idx`` (shape (len(idx), order)), from its modes now."""
         pool = self.pool
         idx = as_run(idx)
@@ -299,7 +301,7 @@ class Engine:
         self.apply_settings(settings)
         self.controls.set_entries(default_entries() if settings.controls is None else settings.controls)
 
-    def set_value(self, name: str, value) -> None:
+    def set_value(self, name: str, value: Any) -> None:
         """Change one parameter by its canonical name (validated)."""
         self.apply_settings(self.settings.with_values({name: value}))
 
@@ -422,7 +424,7 @@ class Engine:
         """
         changes = self._changes
         if changes:
-            queues: dict[int, list[list[tuple]]] = {}
+            queues: dict[int, list[list[tuple[int, int, int, Any]]]] = {}
             for change in changes:
                 steps = queues.setdefault(change[0], [])
                 if steps and steps[-1][0][1] == change[1]:
@@ -529,7 +531,7 @@ class Engine:
             if not kept.all():
                 built = idx[~kept]
                 self._resolve(built, pool.update_tables_at(built))
-                new = {}
+                new: dict[tuple[int, int, int], int] = {}
                 for v, key, entry in zip(idx, keys, entries, strict=True):
                     if entry < 0 and key is not None:
                         new.setdefault(key, v)  # one slot per key (the same note on two channels)
@@ -608,13 +610,13 @@ class Engine:
             self._bound_block = self.stats.blocks
         return pool.level
 
-    def _start_voices(self, starts: list) -> None:
+    def _start_voices(self, starts: list[tuple[int, int, int, Any]]) -> None:
         """Set up the voices of START changes (all at once): amplitudes, frequencies, decay, weights."""
         pool = self.pool
         idx = np.array([c[0] for c in starts])
         slots = as_run(idx)
         a4_hz = self.settings.get("tuning.a4_hz")
-        rows = self._starts.rows([c[3][1] for c in starts], self._tables.epoch,
+        rows: slice | np.ndarray = self._starts.rows([c[3][1] for c in starts], self._tables.epoch,
                                  lambda notes: midi_note_to_hz(notes, a4_hz)[:, None] * self._stretch,
                                  lambda freqs: decay_rate_per_s(freqs, self._b1, self._b3))
         rows = as_run(rows)  # one note: views, not gathers
@@ -858,7 +860,8 @@ class Engine:
     def mode_levels(self, v: int) -> np.ndarray:
         """|g s| of each mode of slot v in output units (before electronics and gain); 0 above the Nyquist margin."""
         pool = self.pool
-        return np.abs(pool.g[v] * pool.s[v]) * (OUTPUT_SCALE * pool.audible[v])
+        levels: np.ndarray = np.abs(pool.g[v] * pool.s[v]) * (OUTPUT_SCALE * pool.audible[v])
+        return levels
 
 
 def as_run(idx: slice | np.ndarray) -> slice | np.ndarray:

@@ -128,7 +128,7 @@ class VoicePool:
         sigma, omega = np.minimum(self.sigma[slots], self.max_sigma), self.omega[slots]
         logp = (-sigma + 1j * omega) / self.fs
         self.logp[slots] = logp
-        p = np.exp(logp)
+        p: np.ndarray = np.exp(logp)
         self.p[slots] = p
         a = _powers_into(p, np.empty((self.n1,) + p.shape, complex))  # a[j] = p^j
         b = _powers_into(a[-1] * p, np.empty((self.n2 + 1,) + p.shape, complex))  # b[j] = p^(N1 j)
@@ -157,7 +157,7 @@ class VoicePool:
         """
         rows = -(-count // self.n1)
         c = np.multiply(self.B_t[:rows, slots, :].transpose(1, 0, 2), d[:, None, :], dtype=np.complex64)
-        y = c.view(np.float32) @ self.A_rows[slots].reshape(len(slots), 2 * self.modes, self.n1)
+        y: np.ndarray = c.view(np.float32) @ self.A_rows[slots].reshape(len(slots), 2 * self.modes, self.n1)
         return y.reshape(len(slots), -1)
 
     # -- slots ------------------------------------------------------------------
@@ -202,4 +202,5 @@ class VoicePool:
     def bound(self, lo: int = 0, hi: int | None = None) -> np.ndarray:
         """Upper bound of the output amplitude of active slots lo..hi-1 (all by default): sum over modes of |g s|."""
         hi = self.n_active if hi is None else hi
-        return np.abs(self.g[lo:hi] * self.s[lo:hi]).sum(axis=1)
+        level: np.ndarray = np.abs(self.g[lo:hi] * self.s[lo:hi]).sum(axis=1)
+        return level

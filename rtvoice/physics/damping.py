@@ -66,4 +66,5 @@ def release_rate_per_s(sigma_per_s: ArrayLike, release_t60_s: float) -> np.ndarr
     Every mode decays at least as fast as a T60 of ``release_t60_s``; a mode that
     already dies faster keeps its own rate.
     """
-    return np.maximum(np.asarray(sigma_per_s, dtype=float), LN_1000 / release_t60_s)
+    sigma_released: np.ndarray = np.maximum(np.asarray(sigma_per_s, dtype=float), LN_1000 / release_t60_s)
+    return sigma_released

@@ -32,7 +32,7 @@ def pluck_amplitudes(k: np.ndarray, position: float, width: float = 0.0) -> np.n
     """
     k = np.asarray(k, dtype=float)
     p = float(position)
-    a = 2.0 * np.sin(k * np.pi * p) / (k * k * np.pi**2 * p * (1.0 - p))
+    a: np.ndarray = 2.0 * np.sin(k * np.pi * p) / (k * k * np.pi**2 * p * (1.0 - p))
     return a * _sinc_half_width(k, width) if width > 0 else a
 
 
@@ -62,7 +62,7 @@ def strike_velocity_coefficients(k: np.ndarray, position: float, width: float = 
     of mode k is b_k / w_k, which falls as 1/k for a narrow hammer.
     """
     k = np.asarray(k, dtype=float)
-    b = 2.0 * np.sin(k * np.pi * float(position))
+    b: np.ndarray = 2.0 * np.sin(k * np.pi * float(position))
     return b * _sinc_half_width(k, width) if width > 0 else b
 
 
@@ -71,7 +71,8 @@ def shape_from_breakpoints(breakpoints: Sequence[Sequence[float]], x: np.ndarray
     pts = sorted((float(px), float(py)) for px, py in breakpoints)
     xs = [0.0] + [px for px, _ in pts] + [1.0]
     ys = [0.0] + [py for _, py in pts] + [0.0]
-    return np.interp(np.asarray(x, dtype=float), xs, ys)
+    shape: np.ndarray = np.interp(np.asarray(x, dtype=float), xs, ys)
+    return shape
 
 
 def project_shape(samples: np.ndarray, n_modes: int) -> np.ndarray:

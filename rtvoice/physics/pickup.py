@@ -10,8 +10,10 @@ not.
 from __future__ import annotations
 
 from collections.abc import Iterable, Mapping
+from typing import Any
 
 import numpy as np
+from numpy.typing import ArrayLike
 
 
 def aperture_weights(k: np.ndarray, position: float, width: float = 0.0) -> np.ndarray:
@@ -46,10 +48,12 @@ def first_aperture_null(width: float) -> float:
 
 def level_gain(level_db: float, polarity: int) -> float:
     """Linear gain of a pickup from its level in dB and its polarity (+1 or -1)."""
-    return float(polarity) * 10.0 ** (float(level_db) / 20.0)
+    # typeshed types float ** float as Any (a negative base gives a complex), hence the annotation.
+    gain: float = 10.0 ** (float(level_db) / 20.0)
+    return float(polarity) * gain
 
 
-def spatial_sums(k: np.ndarray, pickups: Iterable[Mapping]) -> tuple[np.ndarray, np.ndarray]:
+def spatial_sums(k: np.ndarray, pickups: Iterable[Mapping[str, Any]]) -> tuple[np.ndarray, np.ndarray]:
     """Level-weighted aperture weights summed over pickups, split by sensing.
 
     Returns (displacement_sum, velocity_sum), each one value per harmonic in ``k``.
@@ -70,7 +74,7 @@ def spatial_sums(k: np.ndarray, pickups: Iterable[Mapping]) -> tuple[np.ndarray,
     return disp, vel
 
 
-def velocity_factor(sigma_per_s, omega_rad_s, omega_ref_rad_s) -> np.ndarray:
+def velocity_factor(sigma_per_s: ArrayLike, omega_rad_s: ArrayLike, omega_ref_rad_s: float | np.ndarray) -> np.ndarray:
     """(-sigma + i w) / w_ref: what a velocity pickup multiplies a mode's complex amplitude by.
 
     A mode with complex amplitude c moves as Re(c e^{(-sigma + i w) t}), so its velocity
@@ -83,7 +87,7 @@ def velocity_factor(sigma_per_s, omega_rad_s, omega_ref_rad_s) -> np.ndarray:
 
 def pickup_weights(
     k: np.ndarray,
-    pickups: Iterable[Mapping],
+    pickups: Iterable[Mapping[str, Any]],
     sigma_per_s: np.ndarray,
     omega_rad_s: np.ndarray,
     omega_ref_rad_s: float,
@@ -92,4 +96,5 @@ def pickup_weights(
     displacement pickups by their spatial weight, velocity pickups by it times
     :func:`velocity_factor`."""
     disp, vel = spatial_sums(k, pickups)
-    return disp + vel * velocity_factor(sigma_per_s, omega_rad_s, omega_ref_rad_s)
+    weights: np.ndarray = disp + vel * velocity_factor(sigma_per_s, omega_rad_s, omega_ref_rad_s)
+    return weights

@@ -2,13 +2,22 @@
 
 from __future__ import annotations
 
+from typing import overload
+
 import numpy as np
 from numpy.typing import ArrayLike
 
 A4_MIDI_NOTE = 69  # MIDI 1.0 Detailed Specification: note 69 is A4
 
 
-def midi_note_to_hz(note: ArrayLike, a4_hz: float = 440.0, bend_semitones: ArrayLike = 0.0):
+# A scalar note (bent by a scalar) gives a float, an array of notes an array.
+@overload
+def midi_note_to_hz(note: float, a4_hz: float = 440.0, bend_semitones: float = 0.0) -> float: ...
+@overload
+def midi_note_to_hz(note: np.ndarray, a4_hz: float = 440.0, bend_semitones: ArrayLike = 0.0) -> np.ndarray: ...
+@overload
+def midi_note_to_hz(note: ArrayLike, a4_hz: float = 440.0, bend_semitones: ArrayLike = 0.0) -> float | np.ndarray: ...
+def midi_note_to_hz(note: ArrayLike, a4_hz: float = 440.0, bend_semitones: ArrayLike = 0.0) -> float | np.ndarray:
     """Fundamental in Hz of MIDI ``note`` bent by ``bend_semitones``.
 
     f = a4_hz * 2 ** ((note + bend - 69) / 12); ``a4_hz`` is the reference pitch of

@@ -22,10 +22,11 @@ def stepped(param: Param, value: Any, direction: int, fine: bool = False) -> Any
         choices = list(param.choices)
         i = choices.index(value) if value in choices else 0
         return choices[(i + (1 if up else -1)) % len(choices)]
+    if param.kind not in ("int", "float"):
+        raise ValueError(f"{param.name} has no step: type a value instead")
+    assert param.low is not None and param.high is not None  # every int and float parameter has a range
     if param.kind == "int":
         return int(min(max(value + (1 if up else -1), param.low), param.high))
-    if param.kind != "float":
-        raise ValueError(f"{param.name} has no step: type a value instead")
     v = float(value)
     if param.log_scale and v > 0:
         ratio = LOG_STEP_RATIO ** (1 / FINE if fine else 1)
