@@ -54,7 +54,7 @@ def test_the_engine_process_holds_the_request_while_it_plays_and_says_so(monkeyp
     link = EngineLink(Settings.defaults(), audio_device="none", midi_in="none")
     link.start()
     try:
-        assert link.ready_info["cpu_wakeup"] == "CPU wake-up held within 3 us while playing"
+        assert link.ready_info.cpu_wakeup == "CPU wake-up held within 3 us while playing"
         assert cpu_wakeup.current_us() == min(before, 3)
     finally:
         link.close()

@@ -48,8 +48,8 @@ def test_the_engine_process_freezes_its_start_up_heap_and_says_so():
     try:
         info = link.ready_info
         # numpy, scipy and the engine make tens of thousands of tracked objects; the walk left is small.
-        assert info["heap_frozen"] > 20000
-        assert info["heap_walked"] < info["heap_frozen"] // 20
+        assert info.heap_frozen > 20000
+        assert info.heap_walked < info.heap_frozen // 20
     finally:
         link.close()
-    assert link.summary["heap_frozen"] == info["heap_frozen"]
+    assert link.summary["heap_frozen"] == info.heap_frozen

@@ -23,6 +23,7 @@ from rtvoice.engine.output import CEILING
 from rtvoice.engine.settings import Settings, SettingsError
 from rtvoice.host.errors import HostError, MidiMessageError
 from rtvoice.host.link import EngineLink
+from rtvoice.host.messages import Exited, Learned
 from rtvoice.offline.wav import read_wav
 
 
@@ -87,11 +88,12 @@ def test_set_value_is_validated_in_the_caller(link):
 def test_learn_maps_the_next_controller_and_reports_it(link):
     link.learn("pickup.0.width")
     link.send_midi(0xB0 | 2, 20, 127)  # CC20 on MIDI channel 3
-    learned = _wait(lambda: [m for m in link.poll_messages() if m["type"] == "learned"])
-    assert learned and learned[0]["name"] == "pickup.0.width"
-    assert learned[0]["cc"] == 20 and learned[0]["channel"] == 3
+    learned = _wait(lambda: [m for m in link.poll_messages() if isinstance(m, Learned)])
+    assert learned and learned[0].target == "pickup.0.width"
+    assert learned[0].cc == 20 and learned[0].channel == 3
     entries = [e for e in link.controls() if e["target"] == "pickup.0.width"]
-    assert entries == [learned[0]["entry"]]
+    assert entries == [learned[0].entry]
+    assert list(learned[0].entries) == link.controls()  # the whole map came with it
     # the controller's value was applied too, and the link's copy of the sound follows it
     assert _wait(lambda: link.settings.get("pickup.0.width") == pytest.approx(0.5))
     link.load_settings(Settings.defaults())  # back to the default sound and map
@@ -162,15 +164,15 @@ def test_engine_death_is_reported_and_restart_brings_it_back():
 
 
 def _check_death_and_restart(link: EngineLink) -> None:
-    pid = link.ready_info["pid"]
+    pid = link.ready_info.pid
     os.kill(pid, signal.SIGKILL)
     assert _wait(lambda: not link.alive(), 5.0)
     msgs = _wait(lambda: link.poll_messages(), 2.0)
-    assert any(m["type"] == "exited" for m in msgs)
+    assert any(isinstance(m, Exited) for m in msgs)
     assert link.snapshot().engine_alive is False
     link.note_on(60)  # commands to a dead engine are dropped, not raised
     link.restart()
-    assert link.alive() and link.ready_info["pid"] != pid
+    assert link.alive() and link.ready_info.pid != pid
     link.note_on(60)
     assert _wait(lambda: link.snapshot().voices >= 1)
 

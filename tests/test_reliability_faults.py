@@ -244,7 +244,7 @@ def test_ui_killed_while_a_note_rings_the_engine_fades_out_and_exits(jack_server
         "    time.sleep(0.6)\n"
         "    link.note_on(57, 100)\n"
         "    time.sleep(1.0)\n"
-        "    print(link.ready_info['pid'], flush=True)\n"
+        "    print(link.ready_info.pid, flush=True)\n"
         "    time.sleep(120)\n"
     )
     path = tmp_path / "ui_stand_in.py"

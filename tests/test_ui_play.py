@@ -128,7 +128,7 @@ def test_when_the_engine_dies_the_ui_says_so_and_restarts_it():
             app = RtvoiceApp(link, safety_note=False, spawner=spawner)
             async with app.run_test(size=(80, 24)) as pilot:
                 await pilot.pause()
-                os.kill(link.ready_info["pid"], signal.SIGKILL)
+                os.kill(link.ready_info.pid, signal.SIGKILL)
                 said = await wait_for(pilot, lambda: "engine has stopped" in app.message_text)
                 await pilot.press("ctrl+r")
                 back = await wait_for(pilot, lambda: link.alive() and app._snap.engine_alive)
@@ -150,7 +150,7 @@ def test_when_the_engine_dies_the_ui_says_so_and_restarts_it():
         # The UI thread was niced; the restarted engine was not (it came from the helper thread).
         normal = os.getpriority(os.PRIO_PROCESS, 0)
         assert result["ui_nice"] is None or result["ui_nice"] > normal
-        assert os.getpriority(os.PRIO_PROCESS, link.ready_info["pid"]) == normal
+        assert os.getpriority(os.PRIO_PROCESS, link.ready_info.pid) == normal
     finally:
         spawner.shutdown()
         link.close()

@@ -181,8 +181,9 @@ def _run_once(seconds: float, with_ui: bool, swing: bool) -> dict:
                 performance.step()
                 time.sleep(SWING_S)
             frames = 0
-        audio = link.ready_info.get("audio_port", "")
-        wakeup = link.ready_info.get("cpu_wakeup", "")
+        ready = link.ready_info
+        audio = ready.audio_port if ready is not None else ""
+        wakeup = ready.cpu_wakeup if ready is not None else ""
     finally:
         link.close()
     s = link.summary

@@ -9,7 +9,7 @@ import time
 from pathlib import Path
 
 from rtvoice.commands.render import add_sound_options, settings_from_args
-from rtvoice.engine import Engine
+from rtvoice.engine import resonance_of
 from rtvoice.offline.options import output_path
 from rtvoice.offline.render import text_progress
 from rtvoice.survey.descriptors import DEFAULT_MISSING_BELOW_DB
@@ -177,7 +177,7 @@ def run_survey(args: argparse.Namespace) -> int:
     from rtvoice.survey.csvout import write_csv
 
     write_csv(out, result)
-    f_r, q = Engine(settings, args.rate).resonance()
+    f_r, q = resonance_of(settings)
     electronics = f"resonance {f_r:.0f} Hz, Q {q:.3g}" if f_r > 0 else "bypassed"
     print(
         f"wrote {out} ({result.size} points, {len(notes)} note(s); electronics {electronics}) "

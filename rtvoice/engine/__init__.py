@@ -9,6 +9,7 @@ bench and soak import from here; the modules behind it are the engine's own busi
 from __future__ import annotations
 
 from rtvoice.engine.controls import ControlMap, check_entries, default_entries
+from rtvoice.engine.notes import NoteModel, initial_amplitudes, note_model, resonance_of, velocity_gain
 from rtvoice.engine.output import CEILING, CEILING_DBFS
 from rtvoice.engine.readouts import (
     VoiceReadout,
@@ -30,6 +31,7 @@ __all__ = [
     "Engine",
     "EngineStats",
     "Event",
+    "NoteModel",
     "Settings",
     "SettingsError",
     "VoiceReadout",
@@ -37,8 +39,12 @@ __all__ = [
     "check_entries",
     "default_entries",
     "held_voice",
+    "initial_amplitudes",
     "loudest_voice_into",
     "modes_per_voice",
+    "note_model",
+    "resonance_of",
     "sounding_partials",
+    "velocity_gain",
     "voice_amplitudes",
 ]

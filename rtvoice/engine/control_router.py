@@ -10,7 +10,7 @@ live parameters (pickups, gain, electronics) then glide on the ringing notes thr
 engine's own smoothing, so a controller sweep does not zipper; the others act on the next
 note. Per-note MPE values set the excitation of each note as it starts (cached, as 7-bit
 controllers repeat values). What a host must hear of (a learned mapping, a refused change,
-the values that moved) goes into ``outbox`` as small dicts.
+the values that moved) goes into ``outbox`` as small frozen records (:mod:`rtvoice.engine.events`).
 """
 
 from __future__ import annotations
@@ -21,6 +21,7 @@ from typing import Any, Protocol
 import numpy as np
 
 from rtvoice.engine.controls import ControlMap
+from rtvoice.engine.events import EngineEvent, Error, Learned, Values
 from rtvoice.engine.midi import ChannelState
 from rtvoice.engine.settings import Settings, SettingsError
 
@@ -41,11 +42,11 @@ EXCITATION_CACHE = 512
 
 
 class ControlRouter:
-    def __init__(self, engine: Engine, controls: ControlMap, outbox: deque[dict[str, Any]] | None = None,
+    def __init__(self, engine: Engine, controls: ControlMap, outbox: deque[EngineEvent] | None = None,
                  every_s: float = APPLY_EVERY_S):
         self.engine = engine
         self.controls = controls
-        self.outbox: deque[dict[str, Any]] = outbox if outbox is not None else deque()
+        self.outbox: deque[EngineEvent] = outbox if outbox is not None else deque()
         self.every_s = every_s
         self.pending: dict[str, Any] = {}
         self._last = -1e9
@@ -60,8 +61,7 @@ class ControlRouter:
         changes = self.controls.control_change(channel, cc, value, self._member(channel))
         if self.controls.learned is not None:
             entry, self.controls.learned = self.controls.learned, None
-            self.outbox.append({"type": "learned", "name": entry["target"], "entry": entry,
-                                "cc": entry["cc"], "channel": channel + 1})
+            self.outbox.append(Learned(entry["target"], entry["cc"], channel + 1, entry))
         for name, v in changes:
             self.pending[name] = v
 
@@ -111,7 +111,7 @@ class ControlRouter:
             text = str(err)
             if text not in self._reported:
                 self._reported.add(text)
-                self.outbox.append({"type": "error", "text": text})
+                self.outbox.append(Error(text))
             return
         engine.apply_settings(new)
-        self.outbox.append({"type": "values", "values": changes})
+        self.outbox.append(Values(changes))

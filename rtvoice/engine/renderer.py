@@ -34,17 +34,18 @@ import numpy as np
 from rtvoice.engine import midi
 from rtvoice.engine.control_router import ControlRouter
 from rtvoice.engine.controls import ControlMap, default_entries
+from rtvoice.engine.events import EngineEvent
 from rtvoice.engine.live_modes import LiveProduct
 from rtvoice.engine.modal_filter import ModalFilter
 from rtvoice.engine.note_starts import NoteStarts
 from rtvoice.engine.note_tables import DECAY_HOLD, DECAY_RELEASE, NoteTables, faded
-from rtvoice.engine.notes import harmonic_stretch, initial_amplitudes
+from rtvoice.engine.notes import harmonic_stretch, initial_amplitudes, resonance_of, velocity_gain
 from rtvoice.engine.output import CEILING, Limiter, dc_blocker_coefficients
 from rtvoice.engine.pickup_sums import PickupSums
 from rtvoice.engine.settings import Settings
 from rtvoice.engine.voices import FADING, HELD, RELEASED, SOUNDING, VoicePool
 from rtvoice.physics.damping import LN_1000, decay_rate_per_s, loss_coefficients, release_rate_per_s
-from rtvoice.physics.electronics import lowpass_biquad, rlc_resonance
+from rtvoice.physics.electronics import lowpass_biquad
 from rtvoice.physics.pickup import velocity_factor
 from rtvoice.physics.tuning import midi_note_to_hz
 
@@ -101,7 +102,7 @@ class Engine:
         self.stats = EngineStats()
         # The sound's controller map acts here, so it acts alike live, offline and in the soak. What a
         # host must hear of (learned mappings, refused changes, moved values) waits in ``messages``.
-        self.messages: deque[dict[str, Any]] = deque()
+        self.messages: deque[EngineEvent] = deque()
         self.controls = ControlMap(self.settings.controls)
         self.router = ControlRouter(self, self.controls, self.messages)
         self._alpha = 1.0 - math.exp(-self.block / (SMOOTHING_S * self.fs))
@@ -209,11 +210,7 @@ class Engine:
 
     def resonance(self) -> tuple[float, float]:
         """(f_r in Hz, Q) of the electronics now in use; f_r = 0 when bypassed."""
-        s = self.settings
-        if s.get("electronics.inductance_h") > 0:
-            return rlc_resonance(s.get("electronics.inductance_h"), s.get("electronics.resistance_ohm"),
-                                 s.get("electronics.capacitance_f"), s.get("electronics.load_ohm"))
-        return s.get("electronics.resonance_hz"), s.get("electronics.q")
+        return resonance_of(self.settings)
 
     def _prepare_pickups(self) -> None:
         self._disp, self._vel = self._pickup_sums.update(self._pickups_now)
@@ -228,7 +225,7 @@ class Engine:
         if self._weight_abs is None:
             self._weight_abs = np.abs(self._disp + 1j * self._stretch * self._vel)
         amps = self._initial if initial is None else initial
-        return (velocity / 127.0) ** 2 * float(np.abs(amps) @ self._weight_abs)
+        return velocity_gain(velocity) * float(np.abs(amps) @ self._weight_abs)
 
     def _ramp_weights(self, n: int) -> None:
         """The ramp's target weights of slots 0..n-1: deriv * vel_sum + disp_sum per mode, and times h.
@@ -622,7 +619,7 @@ class Engine:
         rows = as_run(rows)  # one note: views, not gathers
         kept = self._starts
         velocity = np.array([c[3][2] for c in starts], float)
-        amp = (velocity / 127.0) ** 2  # square-law velocity curve (common practice)
+        amp = velocity_gain(velocity)  # square-law velocity curve (common practice)
         given = [c[3][3] for c in starts]
         initial = self._initial if all(i is None for i in given) else np.stack(
             [self._initial if i is None else i for i in given])

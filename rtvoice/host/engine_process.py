@@ -20,7 +20,9 @@ import threading  # noqa: E402
 import time  # noqa: E402
 import traceback  # noqa: E402
 from collections import deque  # noqa: E402
+from dataclasses import replace  # noqa: E402
 from operator import itemgetter  # noqa: E402
+from typing import Any  # noqa: E402
 
 import numpy as np  # noqa: E402
 
@@ -30,6 +32,7 @@ from rtvoice.engine import (
     midi,  # noqa: E402
 )
 from rtvoice.host import cpu_wakeup, heap  # noqa: E402
+from rtvoice.host import messages as msgs  # noqa: E402
 from rtvoice.host.audio import request_realtime_priority  # noqa: E402
 from rtvoice.host.board import Board  # noqa: E402
 from rtvoice.host.errors import HostError  # noqa: E402
@@ -70,11 +73,11 @@ def engine_main(conn, config: dict) -> None:
         host = EngineHost(conn, config)
         host.start()
     except HostError as err:
-        _send(conn, {"type": "fatal", "text": str(err)})
+        _send(conn, msgs.Fatal(str(err)))
         return
     except Exception as err:  # noqa: BLE001 - report anything as one line to the UI, details to stderr
         traceback.print_exc()
-        _send(conn, {"type": "fatal", "text": f"the engine failed to start: {type(err).__name__}: {err}"})
+        _send(conn, msgs.Fatal(f"the engine failed to start: {type(err).__name__}: {err}"))
         return
     signal.signal(signal.SIGTERM, lambda *_: host.request_stop())
     host.run()
@@ -105,12 +108,17 @@ def _env_int(name: str, default: int) -> int:
         return default
 
 
-def _send(conn, msg: dict) -> bool:
+def _send(conn, msg: msgs.Message) -> bool:
     try:
         conn.send(msg)
         return True
     except (OSError, EOFError, BrokenPipeError):
         return False
+
+
+def _channel_message(status: int, data1: int, data2: int) -> bool:
+    """A channel-voice message's bytes (MIDI 1.0: status 0x80..0xEF, data bytes 0..127)."""
+    return 0x80 <= status <= 0xEF and 0 <= data1 <= 127 and 0 <= data2 <= 127
 
 
 class EngineHost:
@@ -141,9 +149,16 @@ class EngineHost:
             if config.get("record") else None
         self.midi = MidiInputs(config.get("midi_in") or "all", config.get("client_name") or "rtvoice")
         # Hand-over between threads.
-        self._inbox: deque = deque()  # commands for the callback
+        self._inbox: deque[msgs.Command] = deque()  # commands for the callback
         self._midi_in: deque = deque()  # (arrival_s, status, d1, d2) from the UI
-        self._outbox: deque = self.engine.messages  # messages from the callback (the engine's, and ours)
+        self._outbox = self.engine.messages  # events from the callback (the engine's, and ours)
+        self._notices: deque[msgs.Device | msgs.Respawn] = deque()  # from this process's main thread
+        # The callback counts controller-map changes and the main thread sends the map when the
+        # count moved: one writer each, so no change is lost between a read and a reset.
+        self._controls_changes = 0
+        self._controls_sent = 0
+        self.dropped_commands = 0  # commands of no known kind or malformed, dropped
+        self.dropped_events = 0  # the engine's events of no known kind, dropped
         # Callback state, preallocated.
         self._raw: list = []
         self._events: list = []
@@ -204,20 +219,19 @@ class EngineHost:
                 self._midi_in.append((now, status, cc, value))
 
     def _send_ready(self) -> None:
-        _send(self.conn, {
-            "type": "ready", "audio_port": self.route.label, "audio_ports": self.route.ports,
-            "midi_ports": self.midi.names(), "notes": list(self.notes), "rate": self.rate, "block": self.block,
-            "server_period": self.server_period,
-            "lookahead_s": getattr(self.engine.stats, "latency_frames", 0) / self.rate,  # the limiter's delay
-            "latency_s": getattr(self.route.output, "latency_s", 0.0), "pid": os.getpid(),
-            "cpu_wakeup": self.cpu_wakeup, "heap_frozen": self.heap_frozen,
-            "heap_walked": heap.full_collection_objects(),
-        })
+        _send(self.conn, msgs.Ready(
+            audio_port=self.route.label, audio_ports=tuple(self.route.ports), midi_ports=tuple(self.midi.names()),
+            notes=tuple(self.notes), rate_hz=int(self.rate), block_frames=self.block,
+            server_period_frames=int(self.server_period or 0),
+            lookahead_s=getattr(self.engine.stats, "latency_frames", 0) / self.rate,  # the limiter's delay
+            latency_s=float(getattr(self.route.output, "latency_s", 0.0)), pid=os.getpid(),
+            cpu_wakeup=self.cpu_wakeup, heap_frozen=self.heap_frozen, heap_walked=heap.full_collection_objects(),
+        ))
         self.notes.clear()
         self._send_controls()
 
     def _send_controls(self) -> None:
-        _send(self.conn, {"type": "controls", "entries": self.controls.to_dicts()})
+        _send(self.conn, msgs.Controls(tuple(self.controls.to_dicts())))
 
     # -- the audio callback ----------------------------------------------------------------
     def process(self, out, frames: int, underflow: bool, gen: int) -> None:
@@ -237,7 +251,7 @@ class EngineHost:
             text = f"audio callback: {type(err).__name__}: {err}"
             if text not in self._error_texts:
                 self._error_texts.add(text)
-                self._outbox.append({"type": "error", "text": text, "trace": traceback.format_exc()})
+                self._outbox.append(msgs.Error(text, traceback.format_exc()))
         t_exit = time.perf_counter()
         self._last_end, self._last_took = t_exit, t_exit - t_enter
         if t_exit - t_enter > self.period_s:
@@ -327,22 +341,21 @@ class EngineHost:
     def _drain_inbox(self) -> None:
         engine = self.engine
         while self._inbox:
-            cmd = self._inbox.popleft()
-            kind = cmd[0]
             try:
-                if kind == "set":
-                    engine.apply_settings(engine.settings.with_values({cmd[1]: cmd[2]}, source="set_value"))
-                elif kind == "load":
-                    settings = cmd[1]
-                    engine.load_sound(settings)
-                    self._outbox.append({"type": "controls"})
-                elif kind == "learn":
-                    self.controls.learn(cmd[1])
-                elif kind == "controls":
-                    self.controls.set_entries(cmd[1])
-                    self._outbox.append({"type": "controls"})
+                match self._inbox.popleft():
+                    case msgs.SetValue(name=name, value=value):
+                        engine.apply_settings(engine.settings.with_values({name: value}, source="set_value"))
+                    case msgs.LoadSound(settings=settings):
+                        engine.load_sound(settings)
+                        self._controls_changes += 1
+                    case msgs.Learn(target=target):
+                        self.controls.learn(target)
+                    case msgs.SetControls(entries=entries):
+                        self.controls.set_entries(entries)
+                        self._controls_changes += 1
+                    # nothing else reaches the inbox: _command admits only these four
             except (SettingsError, ValueError) as err:
-                self._outbox.append({"type": "error", "text": str(err)})
+                self._outbox.append(msgs.Error(str(err)))
 
     # -- the main thread ------------------------------------------------------------------
     def request_stop(self) -> None:
@@ -381,7 +394,7 @@ class EngineHost:
                 next_scan = now + SCAN_EVERY_S
                 self._wait_for_gap()
                 for note in self.midi.scan():
-                    self._outbox.append({"type": "device", "text": note})
+                    self._notices.append(msgs.Device(note))
                     self._ports_changed = True
             if self.stopping and (self.faded or now - self.stop_requested_at > STOP_TIMEOUT_S
                                   or not self.route.running()):
@@ -399,48 +412,56 @@ class EngineHost:
                 return
             time.sleep(GAP_POLL_S)
 
-    def _command(self, cmd: tuple) -> None:
-        kind = cmd[0]
-        if kind == "midi":
-            self._midi_in.append((time.monotonic(), cmd[1], cmd[2], cmd[3]))
-        elif kind == "all_notes_off":
-            now = time.monotonic()
-            for ch in range(16):
-                self._midi_in.append((now, midi.CONTROL_CHANGE | ch, midi.CC_SUSTAIN, 0))
-                self._midi_in.append((now, midi.CONTROL_CHANGE | ch, midi.CC_ALL_NOTES_OFF, 0))
-        elif kind == "close":
-            self.request_stop()
-        else:
-            self._inbox.append(cmd)
+    def _command(self, cmd: object) -> None:
+        """One command from the link: MIDI and closing are handled here, sound and map changes by
+        the callback (which owns the engine). Anything malformed is counted and dropped."""
+        if not msgs.well_formed(cmd, command=True):
+            self.dropped_commands += 1
+            return
+        match cmd:
+            case msgs.MidiBytes(status=status, data1=d1, data2=d2) if _channel_message(status, d1, d2):
+                self._midi_in.append((time.monotonic(), status, d1, d2))
+            case msgs.AllNotesOff():
+                now = time.monotonic()
+                for ch in range(16):
+                    self._midi_in.append((now, midi.CONTROL_CHANGE | ch, midi.CC_SUSTAIN, 0))
+                    self._midi_in.append((now, midi.CONTROL_CHANGE | ch, midi.CC_ALL_NOTES_OFF, 0))
+            case msgs.Close():
+                self.request_stop()
+            case msgs.SetValue() | msgs.LoadSound() | msgs.Learn() | msgs.SetControls():
+                self._inbox.append(cmd)
+            case _:  # a MIDI message with a byte out of range
+                self.dropped_commands += 1
 
     def _forward(self) -> None:
         """Messages the callback left, and coalesced value changes, to the UI."""
-        values = {}
-        controls_changed = False
+        while self._notices:
+            _send(self.conn, self._notices.popleft())
+        values: dict[str, Any] = {}
         while self._outbox:
-            msg = self._outbox.popleft()
-            kind = msg["type"]
-            if kind == "values":
-                values.update(msg["values"])
-                continue
-            if kind == "controls":
-                controls_changed = True
-                continue
-            if kind == "learned":
-                msg["entries"] = self.controls.to_dicts()
-            if "trace" in msg:
-                sys.stderr.write(msg.pop("trace"))
-            _send(self.conn, msg)
+            match self._outbox.popleft():
+                case msgs.Values(values=moved):
+                    values.update(moved)  # coalesced: the last value of each parameter is what counts
+                case msgs.Learned() as learned:
+                    _send(self.conn, replace(learned, entries=tuple(self.controls.to_dicts())))
+                case msgs.Error(trace=trace) as err:
+                    if trace:
+                        sys.stderr.write(trace)  # to the engine's log; the UI shows the line
+                    _send(self.conn, replace(err, trace=""))
+                case _:
+                    self.dropped_events += 1
         if values:
-            _send(self.conn, {"type": "values", "values": values})
-        if controls_changed:
+            _send(self.conn, msgs.Values(values))
+        changes = self._controls_changes
+        if changes != self._controls_sent:
+            self._controls_sent = changes
             self._send_controls()
         if self._ports_changed:
             self._ports_changed = False
-            _send(self.conn, {"type": "ports", "audio_port": self.route.label, "midi_ports": self.midi.names()})
+            _send(self.conn, msgs.Ports(self.route.label, tuple(self.midi.names())))
         if self.recorder is not None and self.recorder.error and not self._rec_reported:
             self._rec_reported = True
-            _send(self.conn, {"type": "error", "text": self.recorder.error})
+            _send(self.conn, msgs.Error(self.recorder.error))
 
     def _publish(self) -> None:
         peak, self._peak_hold = self._peak_hold, 0.0
@@ -460,7 +481,7 @@ class EngineHost:
             return
         for kind, text in self.route.check(now):
             if kind == "respawn":
-                self._outbox.append({"type": "respawn", "text": text})
+                self._notices.append(msgs.Respawn(text))
                 self._forward()
                 self.request_stop()
                 continue
@@ -468,8 +489,8 @@ class EngineHost:
                 self.midi.close()  # the old MIDI clients went down with the server
                 self.midi = MidiInputs(self.midi.mode, self.midi.client_name)
                 for note in self.midi.open():
-                    self._outbox.append({"type": "device", "text": note})
-            self._outbox.append({"type": "device", "text": text})
+                    self._notices.append(msgs.Device(note))
+            self._notices.append(msgs.Device(text))
             self._ports_changed = True
 
     # -- shutdown -----------------------------------------------------------------------------
@@ -493,6 +514,7 @@ class EngineHost:
             "voices_max": self.voices_max, "clock_resyncs": self.clock.resyncs, "rt_priority": self.rt_priority,
             "main_rt_priority": self.main_rt_priority, "cpu_wakeup": self.cpu_wakeup,
             "heap_frozen": self.heap_frozen, "heap_walked": heap.full_collection_objects(),
+            "dropped_commands": self.dropped_commands, "dropped_events": self.dropped_events,
         }
         cpu_wakeup.release(self._wakeup_fd)
         self._wakeup_fd = None
@@ -500,7 +522,7 @@ class EngineHost:
             summary.update(record=str(self.recorder.path), record_seconds=self.recorder.seconds,
                            record_lost=self.recorder.lost)
         self._forward()
-        _send(self.conn, {"type": "closed", "summary": summary})
+        _send(self.conn, msgs.Closed(summary))
         self.board.close()
         try:
             self.conn.close()

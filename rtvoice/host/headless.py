@@ -7,6 +7,7 @@ import sys
 import time
 
 from rtvoice.host.link import EngineLink, Snapshot
+from rtvoice.host.messages import Device, Error, Exited, Learned, Notice
 
 STATUS_EVERY_S = 1.0
 
@@ -25,17 +26,30 @@ SAFETY_LINE = ("listening safety: loud sound damages hearing. Turn your amplifie
 
 def describe_start(link: EngineLink) -> list[str]:
     info = link.ready_info
-    lines = [f"audio: {info.get('audio_port', '?')}, {info.get('rate')} Hz, {info.get('block')} frames"
-             f" ({1000 * info.get('block', 0) / max(info.get('rate', 1), 1):.1f} ms)"]
-    latency = link.latency
-    if latency is not None:
-        lines.append(latency.text())
-    ports = info.get("midi_ports") or []
+    if info is None:
+        return ["audio: ?"]
+    lines = [f"audio: {info.audio_port}, {info.rate_hz} Hz, {info.block_frames} frames"
+             f" ({1000 * info.block_frames / max(info.rate_hz, 1):.1f} ms)", info.latency.text()]
+    ports = info.midi_ports
     lines.append(f"MIDI in: {', '.join(ports) if ports else 'none'}")
-    if info.get("cpu_wakeup"):
-        lines.append(f"CPU wake-up: {info['cpu_wakeup']}")
-    lines += list(info.get("notes", []))
+    if info.cpu_wakeup:
+        lines.append(f"CPU wake-up: {info.cpu_wakeup}")
+    lines += list(info.notes)
     return lines
+
+
+def message_line(msg: Notice) -> str:
+    """One line for a message from the engine, as ``kind: text``."""
+    match msg:
+        case Learned(target=target, cc=cc, channel=channel):
+            return f"learned: CC{cc} on channel {channel} now drives {target}"
+        case Error(text=text):
+            return f"error: {text}"
+        case Exited(text=text):
+            return f"exited: {text}"
+        case Device(text=text):
+            return f"device: {text}"
+    return f"message: {msg!r}"
 
 
 def run_headless(link: EngineLink, duration_s: float | None = None, out=sys.stderr) -> int:
@@ -59,8 +73,7 @@ def run_headless(link: EngineLink, duration_s: float | None = None, out=sys.stde
         while stop["why"] is None:
             time.sleep(0.05)
             for msg in link.poll_messages():
-                text = msg.get("text") or msg
-                out.write(("\n" if tty else "") + f"rtvoice: {msg.get('type')}: {text}\n")
+                out.write(("\n" if tty else "") + f"rtvoice: {message_line(msg)}\n")
             if not link.alive():
                 out.write(("\n" if tty else "") + f"rtvoice: the engine stopped (exit code {link.exitcode})\n")
                 status = 1

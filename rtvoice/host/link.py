@@ -5,7 +5,8 @@ Python work in the UI ever holds the interpreter lock the audio callback needs.
 Commands travel over a pipe; what the UI draws comes back through shared memory
 (:mod:`rtvoice.host.board`) and is read without waiting. Messages from the
 engine (controller learned, device lost, errors) queue up for
-:meth:`EngineLink.poll_messages`.
+:meth:`EngineLink.poll_messages`. What crosses the pipe is defined in :mod:`rtvoice.host.messages`;
+anything else arriving is counted in :attr:`EngineLink.dropped_messages` and dropped.
 """
 
 from __future__ import annotations
@@ -20,17 +21,15 @@ from typing import Any
 import numpy as np
 
 from rtvoice.engine import Settings, SettingsError, check_entries
+from rtvoice.host import messages as msgs
 from rtvoice.host.board import SILENT_DB, SPECTRUM_BINS, Board
 from rtvoice.host.errors import HostError, MidiMessageError
 from rtvoice.host.options import parse_mpe
-from rtvoice.host.rates import DEFAULT_RATE_HZ, Latency, latency_of
+from rtvoice.host.rates import DEFAULT_RATE_HZ, Latency
 
 START_TIMEOUT_S = 30.0  # spawning imports numpy and scipy: seconds on a slow machine
 CLOSE_TIMEOUT_S = 5.0
 DEFAULT_CLIENT_NAME = "rtvoice"
-
-#: Message types the link keeps for itself (they update its caches) instead of handing to the UI.
-_INTERNAL = ("ready", "controls", "values", "ports", "closed", "fatal", "respawn")
 
 
 @dataclass
@@ -77,16 +76,17 @@ class EngineLink:
         self._process: multiprocessing.process.BaseProcess | None = None
         self._conn = None
         self._board: Board | None = None
-        self._messages: deque[dict] = deque()
+        self._messages: deque[msgs.Notice] = deque()
         self._controls: list[dict] = []
         self._audio_port = ""
         self._midi_ports: list[str] = []
         self._closed = False
-        self.summary: dict = {}  # the engine's run summary, after close()
+        self.summary: dict[str, Any] = {}  # the engine's run summary, after close()
         self._old: list = []  # processes that asked to be replaced, joined when they end
         self._respawning = False
         self._restarted = False
-        self.ready_info: dict = {}  # what the engine reported when it started
+        self.ready_info: msgs.Ready | None = None  # what the engine reported when it started
+        self.dropped_messages = 0  # what came over the pipe that was no message, or a malformed one
         self._spawned = False  # an engine was started before (a restarted one appends to --record)
 
     # -- life cycle -------------------------------------------------------------------
@@ -101,14 +101,13 @@ class EngineLink:
         while time.monotonic() < deadline:
             if conn.poll(0.05):
                 try:
-                    msg = conn.recv()
+                    msg = _recv(conn)
                 except (EOFError, OSError):
                     break
-                if msg.get("type") == "fatal":
+                if isinstance(msg, msgs.Fatal) and msgs.well_formed(msg):
                     self._reap()
-                    raise HostError(msg.get("text", "the engine could not start"))
-                self._take(msg)
-                if msg.get("type") == "ready":
+                    raise HostError(msg.text)
+                if self._take(msg) and isinstance(msg, msgs.Ready):
                     return
             elif not proc.is_alive():
                 break
@@ -171,7 +170,7 @@ class EngineLink:
         if proc is None:
             return
         if proc.is_alive():
-            self._send(("close",))
+            self._send(msgs.Close())
             deadline = time.monotonic() + CLOSE_TIMEOUT_S
             while proc.is_alive() and time.monotonic() < deadline:
                 self._pump(0.05)
@@ -203,17 +202,19 @@ class EngineLink:
     @property
     def rate_hz(self) -> int:
         """The rate the engine plays at (it follows the output when no rate was asked for)."""
-        return int(self.ready_info.get("rate") or self.config["rate"] or DEFAULT_RATE_HZ)
+        if self.ready_info is not None:
+            return self.ready_info.rate_hz
+        return int(self.config["rate"] or DEFAULT_RATE_HZ)
 
     @property
     def latency(self) -> Latency | None:
         """MIDI-to-sound latency of the running engine, in parts (None before it is ready)."""
-        return latency_of(self.ready_info)
+        return None if self.ready_info is None else self.ready_info.latency
 
     @property
     def startup_notes(self) -> list[str]:
         """What the engine said at start-up (the rate it follows, outputs or inputs it could not open)."""
-        return [str(n) for n in self.ready_info.get("notes", [])]
+        return [] if self.ready_info is None else list(self.ready_info.notes)
 
     @property
     def exitcode(self) -> int | None:
@@ -229,25 +230,25 @@ class EngineLink:
     def set_value(self, name: str, value: Any) -> None:
         """Change one parameter (canonical dotted name); SettingsError here when not allowed."""
         self._settings = self._settings.with_values({name: value}, source="set_value")
-        self._send(("set", name, self._settings.get(name)))
+        self._send(msgs.SetValue(name, self._settings.get(name)))
 
     def load_settings(self, settings: Settings) -> None:
         """Play a whole sound (a preset); its ``[[control]]`` map, if any, replaces the current one."""
         if not isinstance(settings, Settings):
             raise SettingsError("settings", settings, "expected a Settings object")
         self._settings = settings
-        self._send(("load", settings))
+        self._send(msgs.LoadSound(settings))
 
     def note_on(self, note: int, velocity: int = 100, channel: int = 0) -> None:
         _check_byte("note", note)
         _check_byte("velocity", velocity)
         _check_channel(channel)
-        self._send(("midi", 0x90 | channel, note, velocity))
+        self._send(msgs.MidiBytes(0x90 | channel, note, velocity))
 
     def note_off(self, note: int, channel: int = 0) -> None:
         _check_byte("note", note)
         _check_channel(channel)
-        self._send(("midi", 0x80 | channel, note, 0))
+        self._send(msgs.MidiBytes(0x80 | channel, note, 0))
 
     def send_midi(self, status: int, data1: int = 0, data2: int = 0) -> None:
         """Any channel-voice message, as if it came from a MIDI input; MidiMessageError for a bad byte."""
@@ -255,22 +256,22 @@ class EngineLink:
             raise MidiMessageError("status", status, "not a channel message status byte", "0x80..0xEF")
         _check_byte("data1", data1)
         _check_byte("data2", data2)
-        self._send(("midi", status, data1, data2))
+        self._send(msgs.MidiBytes(status, data1, data2))
 
     def all_notes_off(self) -> None:
-        self._send(("all_notes_off",))
+        self._send(msgs.AllNotesOff())
 
     def learn(self, name: str | None) -> None:
         """Map the next controller moved to parameter ``name``; None cancels learning."""
         if name is not None:
             check_entries([{"target": name, "cc": 1}], source="learn")
-        self._send(("learn", name))
+        self._send(msgs.Learn(name))
 
     def set_controls(self, entries: list[dict]) -> None:
         """Replace the controller map (entries as returned by :meth:`controls`)."""
         checked = check_entries(entries, source="controls")
         self._controls = [dict(e) for e in checked]
-        self._send(("controls", checked))
+        self._send(msgs.SetControls(tuple(checked)))
 
     def controls(self) -> list[dict]:
         """The controller map now in use, one dict per entry (the preset's ``[[control]]`` form)."""
@@ -296,15 +297,15 @@ class EngineLink:
             audio_port=self._audio_port, midi_ports=list(self._midi_ports), engine_alive=alive,
         )
 
-    def poll_messages(self) -> list[dict]:
-        """Messages from the engine since the last call: 'learned', 'error', 'device', 'exited'."""
+    def poll_messages(self) -> list[msgs.Notice]:
+        """Messages from the engine since the last call: Learned, Error, Device, Exited."""
         self._pump(0.0)
         out = list(self._messages)
         self._messages.clear()
         return out
 
     # -- plumbing ---------------------------------------------------------------------
-    def _send(self, command: tuple) -> None:
+    def _send(self, command: msgs.Command) -> None:
         if self._conn is None or self._closed:
             return
         try:
@@ -318,7 +319,7 @@ class EngineLink:
             return
         try:
             while conn.poll(timeout_s):
-                self._take(conn.recv())
+                self._take(_recv(conn))
                 timeout_s = 0.0
         except (EOFError, OSError):
             if self._respawning and not self._closed:
@@ -338,39 +339,59 @@ class EngineLink:
                 proc.join(0.2)
                 code = proc.exitcode
             if not self.summary:
-                self._messages.append({"type": "exited", "text": f"the engine stopped (exit code {code})"})
+                self._messages.append(msgs.Exited(f"the engine stopped (exit code {code})"))
             self._conn.close()
             self._conn = None
             self._closed = True
 
-    def _take(self, msg: dict) -> None:
-        kind = msg.get("type")
-        if kind == "respawn":
-            self._respawning = True
-            self._messages.append({"type": "device", "text": msg.get("text", "restarting the engine")})
-        elif kind == "ready" and self._restarted:
-            self._restarted = False
-            self._messages.append({"type": "device", "text": f"audio output back: {msg.get('audio_port', '')}"})
-        elif kind == "fatal":
-            self._messages.append({"type": "error", "text": msg.get("text", "the engine could not start")})
-        if kind in ("ready", "ports"):
-            self._audio_port = msg.get("audio_port", self._audio_port)
-            self._midi_ports = list(msg.get("midi_ports", self._midi_ports))
-            if kind == "ready":
+    def _take(self, msg: object) -> bool:
+        """Act on one message from the engine; False (and counted) when it was none or malformed."""
+        if not msgs.well_formed(msg):
+            self.dropped_messages += 1
+            return False
+        match msg:
+            case msgs.Respawn(text=text):
+                self._respawning = True
+                self._messages.append(msgs.Device(text))
+            case msgs.Ready(audio_port=port, midi_ports=ports):
+                if self._restarted:
+                    self._restarted = False
+                    self._messages.append(msgs.Device(f"audio output back: {port}"))
+                self._audio_port, self._midi_ports = port, list(ports)
                 self.ready_info = msg
-        elif kind == "controls":
-            self._controls = [dict(e) for e in msg["entries"]]
-        elif kind == "values":
-            try:
-                self._settings = self._settings.with_values(msg["values"], source="engine")
-            except SettingsError:
-                pass
-        elif kind == "closed":
-            self.summary = msg.get("summary", {})
-        if kind == "learned":
-            self._controls = [dict(e) for e in msg.get("entries", self._controls)]
-        if kind not in _INTERNAL:
-            self._messages.append(msg)
+            case msgs.Ports(audio_port=port, midi_ports=ports):
+                self._audio_port, self._midi_ports = port, list(ports)
+            case msgs.Fatal(text=text):
+                self._messages.append(msgs.Error(text))
+            case msgs.Controls(entries=entries):
+                self._controls = [dict(e) for e in entries]
+            case msgs.Values(values=values):
+                try:
+                    self._settings = self._settings.with_values(values, source="engine")
+                except SettingsError:
+                    pass
+            case msgs.Closed(summary=summary):
+                self.summary = summary
+            case msgs.Learned(entries=entries):
+                self._controls = [dict(e) for e in entries]
+                self._messages.append(msg)
+            case msgs.Error() | msgs.Device():
+                self._messages.append(msg)
+            case _:  # Exited is the link's own word: it never comes over the pipe
+                self.dropped_messages += 1
+                return False
+        return True
+
+
+def _recv(conn: Any) -> object:
+    """One object from the pipe; None when its bytes do not unpickle (counted as malformed by
+    :meth:`EngineLink._take`). A closed pipe still raises EOFError or OSError."""
+    try:
+        return conn.recv()
+    except (EOFError, OSError):
+        raise
+    except Exception:  # noqa: BLE001 - an unpickling error of any kind: a malformed message
+        return None
 
 
 def _check_byte(what: str, value: int) -> None:

@@ -73,12 +73,3 @@ class Latency:
         if self.lookahead_ms:
             parts += f" + limiter {self.lookahead_ms:.1f}"
         return f"MIDI to sound {self.total_ms:.1f} ms ({parts} ms)"
-
-
-def latency_of(ready: dict) -> Latency | None:
-    """The latency an engine reported in its ready message, or None before it is ready."""
-    rate, block = ready.get("rate"), ready.get("block")
-    if not rate or not block:
-        return None
-    return Latency(1000.0 * block / rate, 1000.0 * float(ready.get("latency_s") or 0.0),
-                   1000.0 * float(ready.get("lookahead_s") or 0.0))

@@ -25,3 +25,9 @@ def playable_mode_count(freqs_hz: np.ndarray, sample_rate_hz: float) -> int:
     ``freqs_hz`` must be increasing, as :func:`mode_frequencies_hz` returns them.
     """
     return int(np.searchsorted(freqs_hz, NYQUIST_MARGIN * sample_rate_hz, side="left"))
+
+
+def unstiffened_f0_hz(first_mode_hz: float, inharmonicity: float) -> float:
+    """The frequency f0 a stiff string would have without stiffness, from its first mode's
+    f_1 = f0 sqrt(1 + B) (Fletcher's stiff-string formula at k = 1)."""
+    return float(first_mode_hz / np.sqrt(1.0 + inharmonicity))

@@ -18,6 +18,7 @@ from dataclasses import asdict, dataclass, field
 import numpy as np
 
 from rtvoice.engine import CEILING, Engine, Settings, SettingsError
+from rtvoice.engine.events import Values
 from rtvoice.engine.presets import list_presets, load_preset
 from rtvoice.soak.held import HeldNote
 from rtvoice.soak.memory import MemorySampler
@@ -145,9 +146,9 @@ def _moved_values(engine: Engine) -> dict[str, object]:
     """The values the engine's controller map changed since the last call (its ``values`` messages)."""
     moved: dict[str, object] = {}
     while engine.messages:
-        msg = engine.messages.popleft()
-        if msg.get("type") == "values":
-            moved.update(msg["values"])
+        match engine.messages.popleft():
+            case Values(values=values):
+                moved.update(values)
     return moved
 
 

@@ -16,7 +16,7 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.signal
 
-from rtvoice.engine import OUTPUT_SCALE, Engine, Settings
+from rtvoice.engine import OUTPUT_SCALE, Settings, initial_amplitudes, resonance_of
 from rtvoice.engine.output import dc_blocker, electronics_filter
 from rtvoice.physics.damping import decay_rate_per_s, loss_coefficients
 from rtvoice.physics.modes import mode_frequencies_hz, playable_mode_count
@@ -71,9 +71,8 @@ class EngineModel:
         self.settings = settings
         self.fs = float(sample_rate_hz)
         self.pickup_index = pickup_index
-        self.engine = Engine(settings, self.fs)
         self.n_modes = settings.get("string.modes")
-        f_r, q = self.engine.resonance()
+        f_r, q = resonance_of(settings)  # the engine's own note description (rtvoice.engine.notes)
         self._electronics = electronics_filter(f_r, q, self.fs)
         self._dc = dc_blocker(self.fs)
         self._gain = OUTPUT_SCALE * 10 ** (settings.get("output.gain_db") / 20)
@@ -102,15 +101,12 @@ class EngineModel:
     def initial_amplitudes(self, pluck_positions: Sequence[float]) -> np.ndarray:
         """Initial complex amplitudes s_k at full velocity, shape (n_pluck, string.modes).
 
-        They are read from the engine after it prepared each pluck position, so a
-        pluck, a strike or a shape gives exactly what a note-on would.
+        Formed where every note-on forms them (:func:`rtvoice.engine.initial_amplitudes`), so
+        a pluck, a strike or a shape gives exactly what a note-on would.
         """
-        engine, base = self.engine, self.settings
         out = np.empty((len(pluck_positions), self.n_modes), complex)
         for i, p in enumerate(pluck_positions):
-            engine.apply_settings(base.with_values({"excitation.position": float(p)}))
-            out[i] = engine.initial  # formed where every note-on forms them (rtvoice.engine.notes)
-        engine.apply_settings(base)
+            out[i] = initial_amplitudes(self.settings, self.n_modes, position=float(p))
         return out
 
     def pickup_weights(self, modes: NoteModes, positions: Sequence[float], width: float, sensing: str) -> np.ndarray:

@@ -24,6 +24,8 @@ from textual.widgets import ContentSwitcher, Footer, Input
 
 from rtvoice.engine import Settings, SettingsError, apply_assignments
 from rtvoice.engine.schema import MAX_PICKUPS, lookup
+from rtvoice.host.messages import Device, Error, Exited, Learned, Notice
+from rtvoice.physics.modes import unstiffened_f0_hz
 from rtvoice.ui import userstate
 from rtvoice.ui.compare import SlotComparison, compare_slots
 from rtvoice.ui.format import note_name
@@ -263,7 +265,7 @@ class RtvoiceApp(AppGuard, PresetActions, App[int]):
         note = snap.note if snap.note >= 0 else self.last_note
         f0 = None
         if snap.note >= 0 and snap.f0_hz > 0:  # the host reports the first partial, bend included
-            f0 = snap.f0_hz / math.sqrt(1.0 + self.session.settings.get("string.inharmonicity"))
+            f0 = unstiffened_f0_hz(snap.f0_hz, self.session.settings.get("string.inharmonicity"))
         if self.view == "harmonics":
             bars = self.bars
             # The prediction is for the loudest voice's own velocity (the keyboard's before any note).
@@ -321,19 +323,16 @@ class RtvoiceApp(AppGuard, PresetActions, App[int]):
         self._refresh_line()
         self._draw_live(self._snap)
 
-    def _engine_message(self, msg: dict) -> None:
-        kind = msg.get("type")
-        if kind == "learned":
-            self.learning = None
-            entry = msg.get("entry") or {}
-            target = entry.get("target") or msg.get("target") or msg.get("name", "")
-            source = f"CC{entry['cc']}" if "cc" in entry else msg.get("text", "a controller")
-            self.session_controls_changed()
-            self.say(f"learned: {source} now drives {display_name(target)} (saving the preset keeps it)")
-        elif kind in ("error", "exited"):
-            self.say_error(f"error: {msg.get('text', msg)}")
-        elif kind == "device":
-            self.say(str(msg.get("text", msg)))
+    def _engine_message(self, msg: Notice) -> None:
+        match msg:
+            case Learned(target=target, cc=cc):
+                self.learning = None
+                self.session_controls_changed()
+                self.say(f"learned: CC{cc} now drives {display_name(target)} (saving the preset keeps it)")
+            case Error(text=text) | Exited(text=text):
+                self.say_error(f"error: {text}")
+            case Device(text=text):
+                self.say(text)
 
     def session_controls_changed(self) -> None:
         controls = self.engine.controls()

@@ -12,32 +12,13 @@ import math
 
 import numpy as np
 
-from rtvoice.engine import OUTPUT_SCALE, Settings
-from rtvoice.engine.notes import initial_amplitudes
-from rtvoice.physics.damping import decay_rate_per_s, loss_coefficients
-from rtvoice.physics.electronics import lowpass_response, rlc_resonance
-from rtvoice.physics.modes import NYQUIST_MARGIN, mode_frequencies_hz
+from rtvoice.engine import OUTPUT_SCALE, Settings, note_model, resonance_of, velocity_gain
+from rtvoice.physics.electronics import lowpass_response
+from rtvoice.physics.modes import mode_frequencies_hz
 from rtvoice.physics.pickup import pickup_weights
 from rtvoice.physics.tuning import midi_note_to_hz
 
 FLOOR_DB = -200.0  # stands for "nothing": log of zero
-
-
-def velocity_gain(velocity: int) -> float:
-    """The engine's square-law velocity curve (common practice): (v / 127)^2."""
-    return (max(0, min(127, int(velocity))) / 127.0) ** 2
-
-
-def resonance_of(settings: Settings) -> tuple[float, float]:
-    """(f_r in Hz, Q) of the electronics the settings describe; f_r = 0 means bypassed."""
-    if settings.get("electronics.inductance_h") > 0:
-        return rlc_resonance(
-            settings.get("electronics.inductance_h"),
-            settings.get("electronics.resistance_ohm"),
-            settings.get("electronics.capacitance_f"),
-            settings.get("electronics.load_ohm"),
-        )
-    return settings.get("electronics.resonance_hz"), settings.get("electronics.q")
 
 
 def electronics_gain(settings: Settings, freqs_hz: np.ndarray) -> np.ndarray:
@@ -68,17 +49,15 @@ def attack_amplitudes(
     above 0.45 of the sample rate are not rendered and predict 0.
     """
     k = np.arange(1, n + 1, dtype=float)
-    freqs = harmonic_frequencies_hz(settings, f0_hz, n)
-    initial = initial_amplitudes(settings, n)  # formed as every note-on forms them
-    b1, b3 = loss_coefficients(settings.get("string.t60_low"), settings.get("string.t60_high"))
-    sigma = decay_rate_per_s(freqs, b1, b3)
+    model = note_model(settings, -1, n, sample_rate_hz, f0_hz)  # the engine's own note description
+    freqs = model.freqs_hz
     omega = 2 * np.pi * freqs
-    weights = pickup_weights(k, settings.pickups, sigma, omega, omega[0])
-    level = np.abs(initial * weights) * velocity_gain(velocity) * OUTPUT_SCALE
+    weights = pickup_weights(k, settings.pickups, model.sigma_per_s, omega, omega[0])
+    level = np.abs(model.initial * weights) * velocity_gain(velocity) * OUTPUT_SCALE
     if electronics:
         level *= electronics_gain(settings, freqs)
         level *= 10.0 ** (settings.get("output.gain_db") / 20.0)
-    level[freqs >= NYQUIST_MARGIN * sample_rate_hz] = 0.0
+    level[model.playable:] = 0.0  # at or above 0.45 of the sample rate: not rendered
     return level
 
 

@@ -11,6 +11,7 @@ import numpy as np
 
 from rtvoice.engine import Settings, default_entries
 from rtvoice.errors import UserError
+from rtvoice.host.messages import Notice
 from rtvoice.ui.prediction import FLOOR_DB, electronics_gain, to_db
 
 Report = Callable[[str], None]
@@ -40,7 +41,7 @@ class EngineView:
     def snapshot(self):
         return self.link.snapshot()
 
-    def messages(self) -> list[dict]:
+    def messages(self) -> list[Notice]:
         return list(self.link.poll_messages())
 
     def alive(self) -> bool:
