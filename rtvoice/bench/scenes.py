@@ -10,7 +10,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-from rtvoice.engine import Engine, Settings
+from rtvoice.engine import Engine, Settings, active_voices
 
 SAMPLE_RATE_HZ = 48000
 NOTE_ON = 0x90
@@ -85,4 +85,4 @@ class HeldChord:
 
     @property
     def active(self) -> int:
-        return self.engine.pool.n_active
+        return active_voices(self.engine)

@@ -14,7 +14,7 @@ import numpy as np
 
 from rtvoice.bench.scenes import SAMPLE_RATE_HZ, chord_events, feature_settings
 from rtvoice.bench.timing import summarize, wall_seconds
-from rtvoice.engine import Engine, Settings
+from rtvoice.engine import Engine, Settings, active_voices
 from rtvoice.offline.midifile import read_midi_events
 from rtvoice.offline.render import DEFAULT_RENDER_BLOCK, render_events
 from rtvoice.procutil import stop_process
@@ -81,7 +81,7 @@ def realtime_mix(events: list[TimedEvent], settings: Settings, block: int, max_b
         t0 = clock()
         engine.render(batch)
         samples.append(clock() - t0)
-        busiest = max(busiest, engine.pool.n_active)
+        busiest = max(busiest, active_voices(engine))
         if max_blocks and len(samples) >= max_blocks:
             break
     timing = summarize(samples)

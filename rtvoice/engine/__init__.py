@@ -13,9 +13,11 @@ from rtvoice.engine.notes import NoteModel, initial_amplitudes, note_model, reso
 from rtvoice.engine.output import CEILING, CEILING_DBFS
 from rtvoice.engine.readouts import (
     VoiceReadout,
+    active_voices,
     held_voice,
     loudest_voice_into,
     modes_per_voice,
+    pool_token,
     sounding_partials,
     voice_amplitudes,
 )
@@ -35,6 +37,7 @@ __all__ = [
     "Settings",
     "SettingsError",
     "VoiceReadout",
+    "active_voices",
     "apply_assignments",
     "check_entries",
     "default_entries",
@@ -43,6 +46,7 @@ __all__ = [
     "loudest_voice_into",
     "modes_per_voice",
     "note_model",
+    "pool_token",
     "resonance_of",
     "sounding_partials",
     "velocity_gain",

@@ -63,6 +63,17 @@ def voice_amplitudes(engine: Engine, slot: int) -> np.ndarray:
     return amplitudes
 
 
+def active_voices(engine: Engine) -> int:
+    """Voices the engine is rendering now (sounding, held, released or fading): 0 when silent."""
+    return int(engine.pool.n_active)
+
+
+def pool_token(engine: Engine) -> object:
+    """An object that changes when the engine rebuilds its voice pool (``voices`` or ``string.modes``
+    changed and the old voices faded), and only then: compare with ``is``."""
+    return engine.pool
+
+
 def modes_per_voice(engine: Engine) -> int:
     """The pool's modes per voice (``string.modes`` as the pool was built)."""
     return int(engine.pool.modes)

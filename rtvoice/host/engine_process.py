@@ -30,6 +30,7 @@ from rtvoice.engine import (
     Engine,  # noqa: E402
     SettingsError,  # noqa: E402
     midi,  # noqa: E402
+    modes_per_voice,  # noqa: E402
 )
 from rtvoice.host import cpu_wakeup, heap  # noqa: E402
 from rtvoice.host import messages as msgs  # noqa: E402
@@ -473,7 +474,7 @@ class EngineHost:
             "midi_events": self.midi_events, "notes_dropped": self.guard.dropped,
             "heartbeat_s": time.monotonic(), "blocks": self.blocks,
             "block_frames": self.block,
-        }, self.voice_stage.current(), self.engine.pool.modes)
+        }, self.voice_stage.current(), modes_per_voice(self.engine))
 
     # -- devices ----------------------------------------------------------------------------
     def _check_audio(self, now: float) -> None:

@@ -7,7 +7,7 @@ from collections.abc import Callable, Iterator, Sequence
 
 import numpy as np
 
-from rtvoice.engine import Engine, Settings
+from rtvoice.engine import Engine, Settings, active_voices
 
 DEFAULT_TAIL_CAP_S = 30.0
 DEFAULT_RENDER_BLOCK = 2048  # frames per block offline: nobody waits for a file, so fewer, larger blocks
@@ -70,7 +70,7 @@ def iter_blocks(
         count += 1
         if progress and count % 200 == 0:
             progress(min(start / total_guess, 0.99))
-        if i >= len(ordered) and (engine.pool.n_active == 0 or start >= cap_end):
+        if i >= len(ordered) and (active_voices(engine) == 0 or start >= cap_end):
             break
     while flush > 0:  # what the delay still holds
         out = engine.render([])[:flush]

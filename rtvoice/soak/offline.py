@@ -17,7 +17,7 @@ from dataclasses import asdict, dataclass, field
 
 import numpy as np
 
-from rtvoice.engine import CEILING, Engine, Settings, SettingsError
+from rtvoice.engine import CEILING, Engine, Settings, SettingsError, pool_token
 from rtvoice.engine.events import Values
 from rtvoice.engine.presets import list_presets, load_preset
 from rtvoice.soak.held import HeldNote
@@ -176,7 +176,7 @@ def run_offline(config: OfflineConfig | None = None, progress=None) -> OfflineRe
     for b in range(blocks):
         events = traffic.events(b, engine.voices)
         pluck = b >= next_pluck and rebuilding_from is None
-        if rebuilding_from is not None and engine.pool is not rebuilding_from:
+        if rebuilding_from is not None and pool_token(engine) is not rebuilding_from:
             rebuilding_from, rebuilt_at, pool_shape = None, b, (voices, modes)
         if pluck:
             boundary += 1
@@ -186,7 +186,7 @@ def run_offline(config: OfflineConfig | None = None, progress=None) -> OfflineRe
                 traffic_settings = traffic_settings.with_values({"voices": voices, "string.modes": modes})
                 presets = _factory_presets(voices, modes)
                 held.end(engine, b - 1)  # the segment ends here, before the pool fades
-                rebuilding_from = engine.pool
+                rebuilding_from = pool_token(engine)
                 engine.apply_settings(traffic_settings)
                 res.rebuilds += 1
                 pluck = False
