@@ -25,6 +25,7 @@ import time
 from pathlib import Path
 
 import pytest
+from support.mounts import mount_tmpfs, unmount
 
 from rtvoice.engine import presets
 from rtvoice.engine.presets import PresetError
@@ -151,20 +152,7 @@ def check_after_kill(folder: Path, name: str, versions: dict, bystander: bytes, 
 
 
 # -- a real full disk and a real read-only folder (tmpfs mounts; root only) ---------------------------
-def mount_tmpfs(where: Path, size: str) -> None:
-    if os.geteuid() != 0:
-        pytest.skip("mounting a tmpfs needs root (run the suite as root, as on the CI machine)")
-    where.mkdir(parents=True, exist_ok=True)
-    r = subprocess.run(["mount", "-t", "tmpfs", "-o", f"size={size},mode=0755", "tmpfs", str(where)],
-                       capture_output=True, text=True)
-    if r.returncode != 0:
-        pytest.skip(f"cannot mount a tmpfs here: {r.stderr.strip() or r.returncode}")
 
-
-def unmount(where: Path) -> None:
-    r = subprocess.run(["umount", str(where)], capture_output=True, text=True)
-    if r.returncode != 0:
-        subprocess.run(["umount", "-l", str(where)], capture_output=True, text=True)
 
 
 @pytest.fixture()

@@ -18,6 +18,7 @@ import pytest
 import scipy.io.wavfile
 from analysis import db, peak_frequency_hz
 from support.describe import failing
+from support.mounts import mount_tmpfs, unmount
 
 from rtvoice.cli import main
 
@@ -245,20 +246,7 @@ def test_bad_input_is_one_line_exit_2_and_nothing_written(tmp_path, capsys, args
 
 
 # -- a real full disk and a real read-only folder (tmpfs mounts; root only) ----------------------------------
-def mount_tmpfs(where: Path, size: str, read_only: bool = False) -> None:
-    if os.geteuid() != 0:
-        pytest.skip("mounting a tmpfs needs root (run the suite as root, as on the CI machine)")
-    where.mkdir()
-    options = f"size={size},mode=0755" + (",ro" if read_only else "")
-    r = subprocess.run(["mount", "-t", "tmpfs", "-o", options, "tmpfs", str(where)], capture_output=True, text=True)
-    if r.returncode != 0:
-        pytest.skip(f"cannot mount a tmpfs here: {r.stderr.strip() or r.returncode}")
 
-
-def unmount(where: Path) -> None:
-    r = subprocess.run(["umount", str(where)], capture_output=True, text=True)
-    if r.returncode != 0:
-        subprocess.run(["umount", "-l", str(where)], capture_output=True, text=True)
 
 
 @pytest.mark.parametrize(("size", "read_only", "needle"), [
