@@ -10,7 +10,6 @@ from __future__ import annotations
 
 import argparse
 import asyncio
-import math
 import sys
 from concurrent.futures import Executor
 from typing import Any
@@ -22,23 +21,20 @@ from textual.binding import Binding
 from textual.screen import ModalScreen
 from textual.widgets import ContentSwitcher, Footer, Input
 
-from rtvoice.engine import Settings, SettingsError, apply_assignments
-from rtvoice.engine.schema import MAX_PICKUPS, lookup
+from rtvoice.engine import Settings, SettingsError
 from rtvoice.host.messages import Device, Error, Exited, Learned, Notice
-from rtvoice.physics.modes import unstiffened_f0_hz
 from rtvoice.ui import userstate
-from rtvoice.ui.compare import SlotComparison, compare_slots
-from rtvoice.ui.format import note_name
+from rtvoice.ui.compare import SlotComparison
 from rtvoice.ui.guard import log_error, ui_log_path
 from rtvoice.ui.keeping import AppGuard
 from rtvoice.ui.keyboard import OCTAVE_DOWN, OCTAVE_UP, KeyboardPlayer
-from rtvoice.ui.prediction import predicted_levels_db
+from rtvoice.ui.live_picture import LivePicture
 from rtvoice.ui.preset_actions import PresetActions
 from rtvoice.ui.priority import lower_ui_thread_priority, normal_priority_spawner
-from rtvoice.ui.screens.dialogs import AskScreen, PromptScreen
+from rtvoice.ui.screens.dialogs import AskScreen
 from rtvoice.ui.screens.notes import HelpScreen, SafetyScreen
 from rtvoice.ui.session import SoundSession, session_for
-from rtvoice.ui.stepping import stepped
+from rtvoice.ui.sound_editing import SoundEditing
 from rtvoice.ui.sync import EngineView
 from rtvoice.ui.widgets.bars import HarmonicBars
 from rtvoice.ui.widgets.compare_view import CompareView
@@ -46,14 +42,10 @@ from rtvoice.ui.widgets.meters import Meters
 from rtvoice.ui.widgets.params import PICKUP_COUNT, ParamTable
 from rtvoice.ui.widgets.spectrum import SpectrumView
 from rtvoice.ui.widgets.status import MessageLine, SoundLine
-from rtvoice.ui.widgets.string_view import StringView, clamp_to_range
-from rtvoice.ui.words import display_name, said_value, xrun_note
+from rtvoice.ui.widgets.string_view import StringView
+from rtvoice.ui.words import display_name
 
 FRAME_RATE_HZ = 30.0
-METER_EVERY = 3  # numbers are read, not watched: 10 updates a second are plenty
-XRUN_NOTE_EVERY_S = 5.0  # a climbing xrun count is explained at most this often
-STARTUP_XRUNS_S = 2.0  # xruns in the UI's first seconds (the stream starting) are counted, not explained
-PREDICTED_MIN = 32  # harmonics predicted even when fewer fit on screen
 NO_NOTE_DEFAULT = 40  # E2: the note the bars predict for before anything is played
 VIEWS = ("harmonics", "spectrum", "compare")
 #: Actions of the main screen: while a dialog is in front they wait, and the footer leaves them out.
@@ -72,7 +64,7 @@ ParamTable:focus { height: 2fr; border-top: heavy $accent; }
 """
 
 
-class RtvoiceApp(AppGuard, PresetActions, App[int]):
+class RtvoiceApp(AppGuard, LivePicture, SoundEditing, PresetActions, App[int]):
     """The instrument's screen. ``link`` is a started :class:`rtvoice.host.link.EngineLink`."""
 
     TITLE = "rtvoice"
@@ -186,16 +178,6 @@ class RtvoiceApp(AppGuard, PresetActions, App[int]):
         if problem:
             self.say_error(f"could not remember that the listening note was read: {problem}")
 
-    def _title_views(self, caption: str = "") -> None:
-        if self.view == "harmonics":
-            title = f"harmonics {caption} — █ live, │ predicted at the attack"
-        elif self.view == "compare":
-            title = f"A/B {caption} — █ slot A, │ slot B, predicted at the attack (playing: {self.session.active})"
-        else:
-            title = f"output spectrum {caption} — ^ marks the harmonics"
-        if self.views.border_title != title:  # an unchanged title must not cost a repaint
-            self.views.border_title = title
-
     # -- messages to the user ----------------------------------------------------
     def say(self, text: str) -> None:
         self.message_line.say(text)
@@ -207,121 +189,6 @@ class RtvoiceApp(AppGuard, PresetActions, App[int]):
     @property
     def message_text(self) -> str:
         return self.message_line.text
-
-    # -- the live picture ----------------------------------------------------------
-    def _tick(self) -> None:
-        try:
-            self._tick_once()
-        except Exception as err:  # noqa: BLE001 - a timer that raises would stop; the picture must go on
-            self.report_unexpected(err, "the live picture")
-
-    def _tick_once(self) -> None:
-        if self._restarting:  # the link is being rebuilt on another thread: leave it alone
-            return
-        self.frames += 1
-        snap = self.engine.snapshot()
-        for msg in self.engine.messages():
-            self._engine_message(msg)
-        moved = self.engine.moved_values(self.session.settings)
-        if moved:
-            try:
-                self.session.set_values(moved, source="controller")
-            except SettingsError:
-                pass
-            else:
-                self._refresh_sound()
-        if self.frames % METER_EVERY == 0 or not snap.engine_alive:
-            self.meters.show_snapshot(snap)
-            self._explain_xruns(snap)
-        if not snap.engine_alive:
-            if not self._engine_down_said:
-                self._engine_down_said = True
-                self.say_error("error: the engine has stopped; press ctrl+r to restart it")
-        else:
-            self._engine_down_said = False
-        self._snap = snap
-        self._draw_live(snap)
-
-    def _explain_xruns(self, snap) -> None:
-        """When the xrun count climbs, say why: rtvoice's own callback overran its period (``late``
-        climbed too), or it finished in time and the machine or the audio server held it up."""
-        xruns, late = int(getattr(snap, "xruns", 0)), int(getattr(snap, "late", 0))
-        seen_xruns, seen_late, said_at = self._xrun_seen
-        if xruns <= seen_xruns:
-            return
-        now = self.frames / self.frame_rate_hz
-        if said_at < 0 and now < STARTUP_XRUNS_S:  # a stream's first periods often drop one: not news
-            self._xrun_seen = (xruns, late, -1.0)
-            return
-        if now - said_at < XRUN_NOTE_EVERY_S and said_at >= 0:
-            return  # the count keeps climbing on the meters; the reason is said now and then
-        self.say_error(xrun_note(xruns - seen_xruns, xruns, late - seen_late))
-        self._xrun_seen = (xruns, late, now)
-
-    def _draw_live(self, snap) -> None:
-        """Bars (or spectrum), their title and the top line, from ``snap`` and the sound now set."""
-        if snap is None:
-            return
-        note = snap.note if snap.note >= 0 else self.last_note
-        f0 = None
-        if snap.note >= 0 and snap.f0_hz > 0:  # the host reports the first partial, bend included
-            f0 = unstiffened_f0_hz(snap.f0_hz, self.session.settings.get("string.inharmonicity"))
-        if self.view == "harmonics":
-            bars = self.bars
-            # The prediction is for the loudest voice's own velocity (the keyboard's before any note).
-            velocity = int(getattr(snap, "velocity", 0) or self.player.velocity)
-            n = max(PREDICTED_MIN, bars.harmonics_shown())
-            predicted = self._predicted_for(note, f0, n, velocity)
-            live = None
-            if snap.note >= 0:
-                live = self.engine.live_levels_db(self.session.settings, snap)
-            bars.show_levels(live, predicted)
-        elif self.view == "compare":
-            velocity = int(getattr(snap, "velocity", 0) or self.player.velocity)
-            self.compare.show_comparison(self._comparison_for(note, max(PREDICTED_MIN,
-                                                                        self.compare.harmonics_shown()), velocity))
-        else:
-            marks = snap.mode_freqs_hz if snap.note >= 0 else None
-            nyquist_hz = self.sample_rate_hz / 2
-            self.spectrum.show_spectrum(snap.spectrum_db, snap.spectrum_bin_hz, marks, nyquist_hz)
-        caption = f"of {note_name(note)}" + ("" if snap.note >= 0 else " (last note; none ringing)")
-        self._title_views(caption)
-        self._refresh_line(snap.note)
-
-    def _comparison_for(self, note: int, n: int, velocity: int) -> SlotComparison:
-        """Slots A and B predicted for one note, recomputed only when a sound, the note or the size changes."""
-        a, b = self.session.slots["A"].settings, self.session.slots["B"].settings
-        key = (id(a), id(b), note, n, velocity)
-        if key != self._compared_key or self._compared is None:
-            self._compared_key = key
-            self._compared = compare_slots(a, b, note, n, velocity, self.sample_rate_hz)
-        return self._compared
-
-    def _predicted_for(self, note: int, f0_hz: float | None, n: int, velocity: int) -> np.ndarray:
-        """Predicted attack levels, recomputed only when the sound, note or size changes."""
-        settings = self.session.settings
-        f0_key = None if f0_hz is None else round(f0_hz, 3)
-        key = (id(settings), note, f0_key, n, velocity)
-        if key != self._predicted_key:
-            self._predicted_key = key
-            self._predicted = predicted_levels_db(settings, note, n, velocity, f0_hz, self.sample_rate_hz)
-        return self._predicted
-
-    def _refresh_line(self, note: int = -1) -> None:
-        slot = self.session.slot
-        self.sound_line.show(
-            preset=slot.preset, origin=slot.origin, dirty=slot.dirty, slot=self.session.active,
-            octave=self.player.shift, note=note, learning=self.learning,
-        )
-
-    def _refresh_sound(self) -> None:
-        """Hand the current settings to every widget that draws them."""
-        s = self.session.settings
-        other = self.session.slots["B" if self.session.active == "A" else "A"].settings
-        self.string_view.show_settings(s, other)
-        self.params.show_settings(s, self.engine.controls())
-        self._refresh_line()
-        self._draw_live(self._snap)
 
     def _engine_message(self, msg: Notice) -> None:
         match msg:
@@ -341,104 +208,6 @@ class RtvoiceApp(AppGuard, PresetActions, App[int]):
         except SettingsError as err:
             self.say_error(str(err))
         self._refresh_sound()
-
-    # -- changing the sound ----------------------------------------------------------
-    def change(self, name: str, value: Any) -> bool:
-        """Validate and apply one parameter change; tell the engine only if it was allowed."""
-        try:
-            self.session.set_values({name: value})
-        except SettingsError as err:
-            self.say_error(str(err))
-            return False
-        self.engine.set_value(name, self.session.settings.get(name), self.say_error)
-        self._refresh_sound()
-        return True
-
-    def change_typed(self, name: str, text: str) -> None:
-        if name == PICKUP_COUNT:
-            self._set_pickup_count(int(text))
-            return
-        try:
-            self.session.set_typed(name, text)
-        except SettingsError as err:
-            self.say_error(str(err))
-            return
-        self.engine.set_value(name, self.session.settings.get(name), self.say_error)
-        s = self.session.settings
-        self.say(said_value(name, s.get(name), s.get("string.scale_length_mm")))
-        self._refresh_sound()
-
-    def check_typed(self, name: str, text: str) -> str | None:
-        """The reason a typed value would be refused, or None (nothing is changed here)."""
-        if name == PICKUP_COUNT:
-            if not text.isdigit() or not 1 <= int(text) <= MAX_PICKUPS:
-                return f"pickup count must be a whole number 1..{MAX_PICKUPS}, got {text!r}"
-            return None
-        try:
-            apply_assignments(self.session.settings, [f"{name}={text}"], source="typed value")
-        except SettingsError as err:
-            return str(err)
-        return None
-
-    def _set_pickup_count(self, n: int) -> None:
-        try:
-            self.session.set_pickup_count(n)
-        except SettingsError as err:
-            self.say_error(str(err))
-            return
-        self.engine.load(self.session.settings, self.say_error)
-        self.say(f"{n} pickup{'s' if n > 1 else ''}")
-        self._refresh_sound()
-
-    def sound_restored(self, what: str) -> None:
-        self._use_sound(what)
-
-    def _use_sound(self, what: str) -> None:
-        """Send the whole current sound to the engine after a load, revert or flip."""
-        self.engine.load(self.session.settings, self.say_error)
-        self._refresh_sound()
-        self.say(what)
-
-    def on_string_view_move_requested(self, message: StringView.MoveRequested) -> None:
-        self.change(message.name, message.value)
-
-    def on_string_view_nudge_requested(self, message: StringView.NudgeRequested) -> None:
-        """A step in mm from the sound's value now (not the widget's last picture of it)."""
-        s = self.session.settings
-        value = s.get(message.name) + message.delta_mm / s.get("string.scale_length_mm")
-        self.change(message.name, clamp_to_range(message.name, value))
-
-    def on_string_view_selected(self, message: StringView.Selected) -> None:
-        self.params.select_name(message.element.position_name)
-
-    def on_param_table_step_requested(self, message: ParamTable.StepRequested) -> None:
-        if message.name == PICKUP_COUNT:
-            self._set_pickup_count(len(self.session.settings.pickups) + message.direction)
-            return
-        param, _ = lookup(message.name)
-        if param.kind == "shape":
-            self.say("a shape has no step: press enter and type a list of [x, y] points")
-            return
-        current = self.session.settings.get(message.name)
-        self.change(message.name, stepped(param, current, message.direction, message.fine))
-
-    def on_param_table_edit_requested(self, message: ParamTable.EditRequested) -> None:
-        name = message.name
-        if name == PICKUP_COUNT:
-            value, hint = str(len(self.session.settings.pickups)), f"1 .. {MAX_PICKUPS}"
-        else:
-            param, _ = lookup(name)
-            value = _typed_form(param, self.session.settings.get(name))
-            hint = f"{param.help}  Allowed: {param.describe_range()}"
-            if name.endswith((".position", ".width")):
-                hint += "  (or millimetres, like 120mm)"
-
-        def done(text: str | None) -> None:
-            if text is not None:
-                self.change_typed(name, text)
-
-        self.push_screen(PromptScreen(f"new value for {name}", value, hint,
-                                      check=lambda t: self.check_typed(name, t)), done)
 
     # -- playing ---------------------------------------------------------------------
     def on_key(self, event: events.Key) -> None:
@@ -550,17 +319,6 @@ class RtvoiceApp(AppGuard, PresetActions, App[int]):
         verb = "has" if len(unsaved) == 1 else "have"
         question = f"{names[0].upper()}{names[1:]} {verb} unsaved changes. Quit and lose them?"
         self.push_screen(AskScreen(question, "quit", "stay"), done)
-
-
-def _typed_form(param, value: Any) -> str:
-    """A value as it would be typed back (TOML-like)."""
-    if param.kind == "shape":
-        return "[" + ", ".join(f"[{x:g}, {y:g}]" for x, y in value) + "]"
-    if param.kind == "choice":
-        return str(value)
-    if param.kind == "float":
-        return f"{value:.6g}" if math.isfinite(value) else str(value)
-    return str(value)
 
 
 def run_ui(link: Any, args: argparse.Namespace | None = None) -> int:
