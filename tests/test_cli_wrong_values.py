@@ -24,8 +24,9 @@ import sys
 from pathlib import Path
 
 import pytest
+from support.cli import run_cli
 
-from rtvoice.cli import build_parser, main
+from rtvoice.cli import build_parser
 from rtvoice.engine import presets
 from rtvoice.engine.settings import Settings
 
@@ -201,11 +202,7 @@ def test_wrong_values_are_one_line_exit_2_nothing_written(scratch, capsys, path,
 def run_wrong(argv: list[str], on_stdout: bool, scratch: Path, capsys) -> str:
     """What is wrong with how ``rtvoice ARGV`` refused its wrong value ('' when nothing)."""
     before = listing(scratch)
-    try:
-        code = main(argv)
-    except SystemExit as exc:
-        code = exc.code
-    out, err = capsys.readouterr()
+    code, out, err = run_cli(argv, capsys)
     if code != 2:
         return f"exit {code}, stdout {out!r}, stderr {err!r}"
     lines = (out if on_stdout else err).strip().splitlines()

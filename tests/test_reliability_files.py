@@ -22,9 +22,9 @@ from pathlib import Path
 import numpy as np
 import pytest
 import scipy.io.wavfile
+from support.cli import run_cli
 from support.describe import finite_peak
 
-from rtvoice.cli import main
 from rtvoice.offline import midifile
 from rtvoice.offline.midifile import MidiFileError, parse_midi_bytes, read_midi_events
 
@@ -155,15 +155,6 @@ CASES = [
      GOOD_EVENTS),
 ]
 
-
-def run_cli(argv: list[str], capsys) -> tuple[int, str, str]:
-    """`rtvoice ARGS` in this process: (exit status, stdout, stderr); any other exception fails the test."""
-    try:
-        code = main(argv)
-    except SystemExit as exc:
-        code = exc.code
-    out, err = capsys.readouterr()
-    return code, out, err
 
 
 def assert_one_clean_line(code, err, needle):

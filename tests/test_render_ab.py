@@ -17,10 +17,9 @@ import numpy as np
 import pytest
 import scipy.io.wavfile
 from analysis import db, peak_frequency_hz
+from support.cli import run_cli
 from support.describe import failing
 from support.mounts import mount_tmpfs, unmount
-
-from rtvoice.cli import main
 
 ROOT = Path(__file__).resolve().parents[1]
 NOTE = ["--note", "40", "--seconds", "0.5"]
@@ -38,15 +37,6 @@ def _user_folder(tmp_path, monkeypatch):
     monkeypatch.setenv("RTVOICE_HOME", str(tmp_path / "home"))
 
 
-def run(argv: list[str], capsys) -> tuple[int, str, str]:
-    """``rtvoice ARGV`` in this process: (exit status, stdout, stderr)."""
-    try:
-        code = main(argv)
-    except SystemExit as exc:
-        code = exc.code
-    out, err = capsys.readouterr()
-    return int(code or 0), out, err
-
 
 def read(path: Path) -> tuple[int, np.ndarray]:
     rate, data = scipy.io.wavfile.read(path)
@@ -62,7 +52,7 @@ def listing(folder: Path) -> dict[str, bytes]:
 def plain_render(tmp_path: Path, name: str, sound: list[str], capsys) -> np.ndarray:
     out = tmp_path / "plain" / name
     out.parent.mkdir(exist_ok=True)
-    code, _, err = run(["render", *NOTE, "-o", str(out), *sound], capsys)
+    code, _, err = run_cli(["render", *NOTE, "-o", str(out), *sound], capsys)
     assert code == 0, err
     return read(out)[1]
 
@@ -98,7 +88,7 @@ def peak_dbfs_printed(stdout: str, path: Path) -> float:
     ids=["b-longer", "a-longer"],
 )
 def test_two_set_groups_line_up_and_each_file_is_its_plain_render(tmp_path, capsys, sound_a, sound_b):
-    code, out, err = run(["render", *NOTE, "-o", str(tmp_path / "take.wav"), *sound_a, *sound_b], capsys)
+    code, out, err = run_cli(["render", *NOTE, "-o", str(tmp_path / "take.wav"), *sound_a, *sound_b], capsys)
     assert code == 0, err
     assert err == ""
     assert not (tmp_path / "take.wav").exists()
@@ -130,7 +120,7 @@ def test_pickup_at_a_quarter_silences_every_fourth_harmonic_and_at_a_third_every
     sound_b = [*common, "pickup.0.position=0.3333333333333333"]
     argv = ["render", *NOTE, "-o", str(tmp_path / "pos.wav")]
     argv += [a for s in sound_a for a in ("--set", s)] + [a for s in sound_b for a in ("--set-b", s)]
-    code, out, err = run(argv, capsys)
+    code, out, err = run_cli(argv, capsys)
     assert code == 0, err
     fs, take_a = read(tmp_path / "pos-A.wav")
     _, take_b = read(tmp_path / "pos-B.wav")
@@ -204,7 +194,7 @@ def test_identical_sounds_warn_and_still_write_both(tmp_path, capsys, sound_b, n
     preset_file.write_text('name = "same"\n')
     fill = {"folder": str(tmp_path), "preset_file": str(preset_file)}
     argv = ["render", *NOTE, "-o", str(tmp_path / "a.wav"), *[s.format(**fill) for s in sound_b]]
-    code, _, err = run(argv, capsys)
+    code, _, err = run_cli(argv, capsys)
     assert code == 0
     assert len(err.strip().splitlines()) == 1 and "warning" in err and needle in err
     written = sorted(tmp_path.glob("*.wav"))
@@ -238,7 +228,7 @@ def test_bad_input_is_one_line_exit_2_and_nothing_written(tmp_path, capsys, args
     fill = {"folder": str(tmp_path), "out": str(tmp_path / "take.wav")}
     before = listing(tmp_path)
     argv = ["render", *NOTE, "-o", fill["out"], *[a.format(**fill) for a in args]]
-    code, out, err = run(argv, capsys)
+    code, out, err = run_cli(argv, capsys)
     assert code == 2, (out, err)
     assert len(err.strip().splitlines()) == 1 and "error" in err and needle in err, err
     assert "Traceback" not in err and out == ""
@@ -258,7 +248,7 @@ def test_b_on_a_full_or_read_only_disk_leaves_neither_file(tmp_path, capsys, siz
     mount_tmpfs(disk, size, read_only)
     try:
         argv = ["render", *NOTE, "-o", str(tmp_path / "a.wav"), "--output-b", str(disk / "b.wav")]
-        code, _, err = run(argv, capsys)
+        code, _, err = run_cli(argv, capsys)
         assert code == 2 and len(err.strip().splitlines()) == 1 and needle in err, err
         assert listing(disk) == {}
     finally:

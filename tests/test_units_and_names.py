@@ -15,6 +15,7 @@ from __future__ import annotations
 import pytest
 from hypothesis import given
 from hypothesis import strategies as st
+from support.cli import run_cli
 
 from rtvoice.cli import main
 from rtvoice.engine.presets import preset_from_bytes, preset_text
@@ -253,12 +254,9 @@ def test_survey_grids_refuse_in_the_typed_unit(spec, kind, needle):
 # -- suggestions through the real parser ---------------------------------------------------
 
 
-def run_cli(argv, capsys) -> str:
-    try:
-        code = main(argv)
-    except SystemExit as exc:
-        code = exc.code
-    err = capsys.readouterr().err
+def refused_line(argv, capsys) -> str:
+    """The one line ``rtvoice ARGV`` refuses with (exit status 2, no traceback)."""
+    code, _, err = run_cli(argv, capsys)
     assert code == 2, err
     lines = err.strip().splitlines()
     assert len(lines) == 1 and "error" in lines[0] and "Traceback" not in err, err
@@ -286,7 +284,7 @@ def run_cli(argv, capsys) -> str:
 ])
 def test_mistakes_get_one_line_with_a_suggestion(tmp_path, capsys, argv, needle):
     out = tmp_path / "out.file"
-    line = run_cli([a.format(out=out) for a in argv], capsys)
+    line = refused_line([a.format(out=out) for a in argv], capsys)
     assert needle in line
     assert not out.exists()
 
@@ -299,6 +297,6 @@ def test_abbreviations_argparse_accepts_still_work(tmp_path):
 
 
 def test_a_distant_word_gets_no_suggestion(capsys):
-    line = run_cli(["xyzzy"], capsys)
+    line = refused_line(["xyzzy"], capsys)
     assert "did you mean" not in line and "invalid choice" in line
 
