@@ -309,7 +309,8 @@ def test_live_columns_count_the_product_and_scale_the_efficiency():
     chord = HeldChord.start(4, 128, 128, ramps=False)
     engine = chord.engine
     assert 0 < engine.live_columns <= 4 * 128
-    assert engine.live_columns == int(engine._live.live_prefixes(4).sum())  # packed afresh at the note-ons
+    packed = int(engine.voice_renderer.live.live_prefixes(4).sum())
+    assert engine.live_columns == packed  # packed afresh at the note-ons
     first = engine.live_columns
     for _ in range(1000):  # 2.7 s: the sweeps drop the modes that died
         chord.render()

@@ -13,8 +13,9 @@ import pytest
 from analysis import db, decay_rate_per_s, fit_damped_modes, peak_frequency_hz
 from support.describe import failing, nonfinite
 
+from rtvoice.engine.housekeeping import RETIRE_LEVEL
 from rtvoice.engine.output import CEILING
-from rtvoice.engine.renderer import OUTPUT_SCALE, RETIRE_LEVEL, Engine
+from rtvoice.engine.renderer import OUTPUT_SCALE, Engine
 from rtvoice.engine.settings import Settings
 from rtvoice.engine.voices import HELD, SOUNDING
 from rtvoice.offline.render import note_events, render_events

@@ -19,7 +19,7 @@ from hypothesis import strategies as st
 
 from rtvoice.bench.scenes import chord_events, feature_settings
 from rtvoice.engine import live_modes
-from rtvoice.engine.live_modes import LIVE_MODE, LiveProduct
+from rtvoice.engine.live_modes import LIVE_MODE, LiveProduct, WeightSet
 from rtvoice.engine.renderer import Engine
 
 FS = 48000
@@ -52,8 +52,8 @@ def test_packed_product_is_the_modal_sum_over_every_mode(seconds):
     pool = engine.pool
     live = LiveProduct(pool)
     live.pack(pool.n_active)
-    live.form(0, pool.gf)
-    live.product(1)
+    live.form(WeightSet.NOW, pool.gf)
+    live.product(False)
     want = modal_sum(pool, 128)
     np.testing.assert_allclose(live.samples[0], want, rtol=0, atol=tolerance(pool))
     # and it did leave modes out: fewer columns than modes (a second on, under half)
@@ -69,8 +69,8 @@ def test_a_prefix_too_short_is_caught_by_the_modal_sum():
     live = LiveProduct(pool)
     k = live.live_prefixes(pool.n_active) // 2
     live.pack(pool.n_active, k)
-    live.form(0, pool.gf)
-    live.product(1)
+    live.form(WeightSet.NOW, pool.gf)
+    live.product(False)
     want = modal_sum(pool, 128)
     assert np.abs(live.samples[0] - want).max() > 100 * tolerance(pool)
 
@@ -113,7 +113,7 @@ def test_every_heard_mode_above_the_threshold_is_in_the_product(block, modes, st
         by_block.setdefault(blk, []).append((offset % block, status, d1, d2))
     for blk in range(32):
         engine.render(sorted(by_block.get(blk, [])))
-        pool, live = engine.pool, engine._live  # white box: the packing the block used
+        pool, live = engine.pool, engine.voice_renderer.live  # white box: the packing the block used
         n = pool.n_active
         if not n or not live.valid:
             continue
@@ -142,10 +142,10 @@ def test_every_quiet_block_is_the_modal_sum_of_the_state_through_retires_and_rep
         tol = 2e-6 * float(np.abs(before[0]).sum())
         engine.render(events)
         retired += max(0, n - engine.pool.n_active)
-        if events or not engine._live.valid:  # (no pickup moves here: no ramp)
+        if events or not engine.voice_renderer.live.valid:  # (no pickup moves here: no ramp)
             continue
         want = np.real(before[0] @ (before[1][:, None] ** np.arange(128)[None, :]))
-        np.testing.assert_allclose(engine._live.samples[0], want, rtol=0, atol=tol, err_msg=f"block {i}")
+        np.testing.assert_allclose(engine.voice_renderer.live.samples[0], want, rtol=0, atol=tol, err_msg=f"block {i}")
         checked += 1
     assert retired >= 6 and checked > 300
 
@@ -176,7 +176,7 @@ def test_blocks_after_single_replucks_are_the_modal_sum_through_holes_and_ramps(
         s0 = (pool.s[:n] * pool.audible[:n]).copy()
         g0, p = pool.gf[:n].copy(), pool.p[:n].reshape(-1).copy()
         out = engine.render(events)
-        live = engine._live
+        live = engine.voice_renderer.live
         if events or not live.valid or engine.pool.n_active != n or not np.any(out):
             continue
         powers = p[:, None] ** np.arange(128)[None, :]

@@ -45,11 +45,11 @@ def test_kept_tables_play_exactly_as_tables_built_afresh():
     # each time).
     settings = Settings.defaults().with_values({"voices": 6})
     keeping, building = Engine(settings, FS, 128), Engine(settings, FS, 128)
-    building._tables = NoteTables(building.pool, 0)
-    building._starts = NoteStarts(building.pool.modes, FS, keep=False)
+    building.voice_renderer.tables = NoteTables(building.pool, 0)
+    building.voice_renderer.starts = NoteStarts(building.pool.modes, FS, keep=False)
     a, b = play(keeping), play(building)
-    assert keeping._tables.hits > 50 and building._tables.hits == 0
-    assert keeping._starts.hits > 50 and building._starts.hits == 0
+    assert keeping.voice_renderer.tables.hits > 50 and building.voice_renderer.tables.hits == 0
+    assert keeping.voice_renderer.starts.hits > 50 and building.voice_renderer.starts.hits == 0
     np.testing.assert_array_equal(a, b)
     assert np.abs(a).max() > 0.05
 
@@ -57,7 +57,7 @@ def test_kept_tables_play_exactly_as_tables_built_afresh():
 def test_note_off_and_re_pluck_on_one_sample_fade_from_the_released_rate():
     # The two changes of the old voice on one sample are applied as one step: it must end where the
     # release and then the fade leave it (the fade's rate or the release's, whichever is faster).
-    from rtvoice.engine.renderer import FADE_T60_S
+    from rtvoice.engine.exact_path import FADE_T60_S
     from rtvoice.physics.damping import LN_1000, release_rate_per_s
 
     engine = Engine(Settings.defaults().with_values({"voices": 4}), FS, 128)

@@ -318,7 +318,7 @@ def test_a_strum_through_the_guard_changes_each_old_voices_tables_once():
         engine.render([])
     guard = NoteOnGuard(period_s)
     guard.cost_s, guard.base_s = 0.001, 0.00015
-    tables = engine._tables
+    tables = engine.voice_renderer.tables
     before = tables.hits + tables.misses
     events = _strum_pairs()
     for _ in range(40):

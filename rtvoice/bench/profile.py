@@ -20,7 +20,9 @@ from rtvoice.bench.scenes import HeldChord
 from rtvoice.bench.timing import time_calls
 from rtvoice.engine.output import Limiter
 
-STAGES = ("_step_pickups", "_render_bulk", "_finish", "_retire", "_apply_bends")
+#: (the engine's part, its method) timed as a stage: "" is the engine itself.
+STAGES = (("glide", "step"), ("voice_renderer", "render_bulk"), ("", "_finish"), ("housekeeping", "after_block"),
+          ("voice_renderer", "apply_bends"))
 
 
 def stage_split(voices: int, modes: int, block: int, ramps: bool, blocks: int = 300) -> dict:
@@ -28,10 +30,12 @@ def stage_split(voices: int, modes: int, block: int, ramps: bool, blocks: int = 
     chord = HeldChord.start(voices, modes, block, ramps)
     engine = chord.engine
     samples: dict[str, list[int]] = {}
-    for name in STAGES:
-        method = getattr(engine, name, None)
+    for part_name, method_name in STAGES:
+        part = getattr(engine, part_name) if part_name else engine
+        method = getattr(part, method_name, None)
         if method is None:
             continue
+        name = f"{part_name}.{method_name}" if part_name else method_name
 
         def timed(*args, _m=method, _name=name, **kwargs):
             t0 = time.perf_counter_ns()
@@ -39,7 +43,7 @@ def stage_split(voices: int, modes: int, block: int, ramps: bool, blocks: int = 
             samples.setdefault(_name, []).append(time.perf_counter_ns() - t0)
             return out
 
-        setattr(engine, name, timed)
+        setattr(part, method_name, timed)
     totals = []
     for i in range(blocks + 20):
         chord.swing(i)
@@ -67,11 +71,12 @@ def hot_functions(voices: int, modes: int, block: int, ramps: bool, blocks: int 
         prof.enable()
         chord.render()
         prof.disable()
-    stats = pstats.Stats(prof, stream=io.StringIO())
+    # Stats.stats is the table pstats itself prints from; typeshed leaves it out of the stubs.
+    table = pstats.Stats(prof, stream=io.StringIO()).stats  # type: ignore[attr-defined]
     rows = []
-    total = sum(v[2] for v in stats.stats.values())  # own time
+    total = sum(v[2] for v in table.values())  # own time
     for (path, line, func), (_cc, calls, own, _cum, _callers) in sorted(
-            stats.stats.items(), key=lambda kv: kv[1][2], reverse=True)[:top]:
+            table.items(), key=lambda kv: kv[1][2], reverse=True)[:top]:
         where = path.split("site-packages/")[-1].split("/rtvoice/")[-1]
         rows.append({"function": f"{where}:{line}({func})", "calls_per_block": round(calls / blocks, 1),
                      "share": round(own / total, 3)})
@@ -103,7 +108,10 @@ def limiter_cost(block: int, repeats: int, sample_rate_hz: int = 48000) -> dict:
             at = (i % 64) * block
             _x[:] = _s[at : at + block]
 
-        timing = time_calls(lambda _lim=lim, _x=x: _lim.process(_x), repeats, warmup=64, between=feed)
+        def limit(_lim: Limiter = lim, _x: np.ndarray = x) -> None:
+            _lim.process(_x)
+
+        timing = time_calls(limit, repeats, warmup=64, between=feed)
         result[f"{name}_median_us"] = round(timing.median_us, 2)
         result[f"{name}_p99_us"] = round(timing.p99_us, 2)
         result[f"{name}_gain_reduction_db"] = round(lim.gain_reduction_db, 1)

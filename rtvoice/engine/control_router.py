@@ -30,8 +30,10 @@ class Engine(Protocol):
     """What the router needs of the engine that owns it (the renderer imports this module, so the
     router names the engine by what it does rather than importing it)."""
 
-    channels: ChannelState
     settings: Settings
+
+    @property
+    def channels(self) -> ChannelState: ...
 
     def excitation_initial(self, position: float, width: float) -> np.ndarray: ...
 

@@ -26,6 +26,7 @@ hundred): below -250 dBFS, far under the single-precision product's own rounding
 from __future__ import annotations
 
 from collections.abc import Iterable
+from enum import Enum
 
 import numpy as np
 
@@ -35,6 +36,14 @@ LIVE_MODE = 1e-15  # a mode amplitude below this is left out of the block produc
 #: More slots than this changing tables in one block are packed afresh (one vectorised pass)
 #: rather than one by one (a few numpy calls each).
 RENEW_ONE_BY_ONE = 4
+
+
+class WeightSet(Enum):
+    """Which weights a set of coefficients is formed with: the voices' weights now, or the target
+    of this block's ramp (a moving pickup, a new output filter). Its value is its row set in C."""
+
+    NOW = 0
+    TARGET = 1
 
 
 class LiveProduct:
@@ -72,7 +81,7 @@ class LiveProduct:
         self.y = np.zeros((2 * n2, n1), np.float32)
         flat = self.y.reshape(-1)
         half = n1 * n2
-        self.samples = (flat[: pool.block], flat[half: half + pool.block])  # weight set 0 (g now), 1 (the ramp's)
+        self.samples = (flat[: pool.block], flat[half: half + pool.block])  # weight sets NOW and TARGET
         self.valid = False  # False: the slots or their tables changed; pack before the next product
         self.n = 0
         self.columns = 0  # L
@@ -206,8 +215,8 @@ class LiveProduct:
         self.d = self._d[:count]
         self.g_buf, self.s_buf = self._g[:count], self._s[:count]
 
-    def form(self, i: int, g: np.ndarray, silent: Iterable[int] = ()) -> None:
-        """C^T = B^T (g s) of weight set ``i`` for every packed mode (``g``: weights of every slot,
+    def form(self, weights: WeightSet, g: np.ndarray, silent: Iterable[int] = ()) -> None:
+        """C^T = B^T (g s) of weight set ``weights`` for every packed mode (``g``: weights of every slot,
         shape (slots, modes)), with the columns of the ``silent`` slots zero."""
         np.take(g.reshape(-1), self.cols, out=self.g_buf, mode="clip")
         np.take(self.pool.s.reshape(-1), self.cols, out=self.s_buf, mode="clip")
@@ -218,10 +227,10 @@ class LiveProduct:
         for v in silent:
             if v < self.n:
                 self.d[start[v]: start[v] + live[v]] = 0.0
-        np.multiply(self.bt, self.d, out=self.ct[i])
+        np.multiply(self.bt, self.d, out=self.ct[weights.value])
 
     def refresh(self, v: int) -> None:
-        """Slot v's coefficients (weight set 0) afresh from its weights and amplitudes now."""
+        """Slot v's coefficients (weight set NOW) afresh from its weights and amplitudes now."""
         k = self.live[v]
         if k:
             lo = self.start[v]
@@ -234,8 +243,9 @@ class LiveProduct:
         if v < self.n:
             self.ct[0][:, self.start[v]: self.start[v] + self.live[v]] = 0.0
 
-    def product(self, sets: int) -> None:
-        """The block for weight sets 0 (and 1 when ``sets`` is 2) into ``samples``."""
+    def product(self, ramping: bool) -> None:
+        """The block for weight set NOW (and TARGET too when ``ramping``) into ``samples``."""
+        sets = 2 if ramping else 1
         if self.columns:
             np.matmul(self.lhs[sets - 1], self.a, out=self.y[: sets * self.n2])
         else:

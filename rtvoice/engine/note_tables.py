@@ -14,17 +14,29 @@ entry makes room when the store is full.
 
 from __future__ import annotations
 
+from enum import IntEnum
+
 import numpy as np
 
 from rtvoice.engine.voices import VoicePool
 
-DECAY_HOLD, DECAY_RELEASE, DECAY_FADE, DECAY_FADE_AFTER_RELEASE = 0, 1, 2, 3  # which decay rate its modes follow
+
+class Decay(IntEnum):
+    """Which decay rate a voice's modes follow (kept in the pool's int8 ``decay`` array, and in table keys)."""
+
+    HOLD = 0  # the string's own loss law
+    RELEASE = 1  # the release rate (key up)
+    FADE = 2  # the fade's (from the held rate)
+    FADE_AFTER_RELEASE = 3  # the fade's, or the release's where faster
+
+
+DECAY_HOLD, DECAY_RELEASE, DECAY_FADE, DECAY_FADE_AFTER_RELEASE = Decay
 
 FEW = 4  # up to this many slots are copied one by one (measured: faster than a gather)
 _ROWS = ("A_rows", "p", "logp", "p_block", "p_block64", "h", "r")  # per-slot rows of the pool (slot is axis 0)
 
 
-def faded(decay: int) -> int:
+def faded(decay: int) -> Decay:
     """The decay of a voice in ``decay`` once it is faded (from the held or the released rate)."""
     return DECAY_FADE_AFTER_RELEASE if decay in (DECAY_RELEASE, DECAY_FADE_AFTER_RELEASE) else DECAY_FADE
 

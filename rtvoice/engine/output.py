@@ -15,8 +15,11 @@ import numpy as np
 import scipy.ndimage
 import scipy.signal
 
+from rtvoice.engine.notes import resonance_of
+from rtvoice.engine.settings import Settings
 from rtvoice.physics.electronics import lowpass_biquad
 
+OUTPUT_SCALE = 0.25  # one full-velocity note peaks near -12 dBFS at 0 dB gain
 CEILING_DBFS = -1.0
 CEILING = 10.0 ** (CEILING_DBFS / 20.0)  # 0.891251 linear
 
@@ -326,3 +329,15 @@ class Limiter:
         red[: attack - 1] = red[n : n + attack - 1]
         level[:look] = level[n : n + look]
         return deepest
+
+
+def output_stage(settings: Settings, sample_rate_hz: float) -> tuple[np.ndarray, np.ndarray]:
+    """(b, a) of the whole linear output stage, as for scipy.signal.lfilter: output scale, coil and cable
+    low-pass (when not bypassed) and DC blocker, before the output gain and the limiter."""
+    f_r, q = resonance_of(settings)
+    b, a = dc_blocker_coefficients(sample_rate_hz)
+    b = b * OUTPUT_SCALE
+    if f_r > 0:
+        coil_b, coil_a = lowpass_biquad(f_r, q, sample_rate_hz)
+        b, a = np.convolve(coil_b, b), np.convolve(coil_a, a)
+    return b, a

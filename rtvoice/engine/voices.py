@@ -18,11 +18,25 @@ one real single-precision GEMM over 2 M rows, half the arithmetic of the complex
 
 from __future__ import annotations
 
+from enum import IntEnum
+
 import numpy as np
 
 from rtvoice.physics.modes import NYQUIST_MARGIN
 
-FREE, SOUNDING, RELEASED, HELD, FADING = 0, 1, 2, 3, 4
+
+class VoiceState(IntEnum):
+    """Where a slot's voice is in its life (kept in the pool's int8 ``state`` array)."""
+
+    FREE = 0  # no voice
+    SOUNDING = 1  # key down
+    RELEASED = 2  # key up: the release decay
+    HELD = 3  # key up, held by the sustain pedal: still the held decay
+    FADING = 4  # stolen, re-plucked or all sound off: a short fade, then retired
+
+
+FREE, SOUNDING, RELEASED, HELD, FADING = VoiceState
+
 MAX_NEPERS_PER_BLOCK = 300.0  # e^-300 = 5e-131: far below hearing, far above the subnormal floor (2e-308)
 FLOAT32_FLOOR_NEPERS = 69.0  # e^-69 = 1e-30, above the single-precision subnormal floor (1.2e-38)
 SILENT_MODE = 1e-30  # a mode amplitude below this (-600 dB) is set to zero (see VoicePool.clear_tiny_modes)
@@ -204,3 +218,17 @@ class VoicePool:
         hi = self.n_active if hi is None else hi
         level: np.ndarray = np.abs(self.g[lo:hi] * self.s[lo:hi]).sum(axis=1)
         return level
+
+
+def as_run(idx: slice | np.ndarray) -> slice | np.ndarray:
+    """Slots ``idx`` as a slice when they are consecutive (one slot, a chord's new voices), else as given.
+
+    Indexing the pool's arrays with a slice makes views; with an index array, gathers
+    and scatters, which cost several times more for the few rows of an event.
+    """
+    if isinstance(idx, slice) or len(idx) == 0:
+        return idx
+    first, count = int(idx[0]), len(idx)
+    if int(idx[-1]) - first != count - 1 or (count > 2 and not bool((np.diff(idx) == 1).all())):
+        return idx
+    return slice(first, first + count)
