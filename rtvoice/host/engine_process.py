@@ -1,4 +1,4 @@
-"""The engine process: the audio callback, MIDI inputs, the command pipe, the shared board.
+"""The engine process: its entry point, start-up, the main thread's loop, device checks and shutdown.
 
 Threads here: the audio callback (PortAudio's thread, or the silent clock's), the
 main thread (commands, meters, port scans, device checks, all at a relaxed pace)
@@ -6,6 +6,10 @@ and, with ``--record``, the file writer. The callback owns the engine: other
 threads hand it work through deques (appends and pops are atomic) and read what
 it leaves in preallocated arrays. The callback takes no locks, does no I/O and
 allocates only small temporaries.
+
+:class:`EngineHost` is put together from the callback (:mod:`rtvoice.host.audio_callback`),
+the process's end of the link's pipe (:mod:`rtvoice.host.engine_pipe`) and, here, what holds
+them together: the state they share, made once at start-up, and the main thread's loop.
 """
 
 from __future__ import annotations
@@ -20,27 +24,24 @@ import threading  # noqa: E402
 import time  # noqa: E402
 import traceback  # noqa: E402
 from collections import deque  # noqa: E402
-from dataclasses import replace  # noqa: E402
-from operator import itemgetter  # noqa: E402
+from multiprocessing.connection import Connection  # noqa: E402
 from typing import Any  # noqa: E402
-
-import numpy as np  # noqa: E402
 
 from rtvoice.engine import (
     Engine,  # noqa: E402
-    SettingsError,  # noqa: E402
     midi,  # noqa: E402
     modes_per_voice,  # noqa: E402
 )
 from rtvoice.host import cpu_wakeup, heap  # noqa: E402
 from rtvoice.host import messages as msgs  # noqa: E402
 from rtvoice.host.audio import request_realtime_priority  # noqa: E402
+from rtvoice.host.audio_callback import PUBLISH_EVERY_S, Arrival, AudioCallback  # noqa: E402
 from rtvoice.host.board import Board  # noqa: E402
+from rtvoice.host.engine_pipe import EnginePipe, send_to_link  # noqa: E402
 from rtvoice.host.errors import HostError  # noqa: E402
-from rtvoice.host.meters import CallbackMeter, Publisher, VoiceStage  # noqa: E402
+from rtvoice.host.meters import Publisher  # noqa: E402
 from rtvoice.host.midi_ports import MidiInputs  # noqa: E402
 from rtvoice.host.options import parse_mpe  # noqa: E402
-from rtvoice.host.overload import NoteOnGuard  # noqa: E402
 from rtvoice.host.rates import block_note, choose_rate  # noqa: E402
 from rtvoice.host.recorder import Recorder  # noqa: E402
 from rtvoice.host.ring import SampleRing  # noqa: E402
@@ -48,9 +49,6 @@ from rtvoice.host.route import AudioRoute  # noqa: E402
 from rtvoice.host.timing import BlockClock  # noqa: E402
 
 SWITCH_INTERVAL_S = 0.0005  # let the callback thread take the interpreter lock quickly
-RAMP_IN_S = 0.5  # start quiet: the output rises from silence over this time
-FADE_OUT_S = 0.08  # stop without a click
-PUBLISH_EVERY_S = 1 / 30
 SCAN_EVERY_S = 1.0
 HEALTH_EVERY_S = 0.25
 RING_S = 10.0
@@ -65,7 +63,7 @@ DEFAULT_RT_PRIORITY = 70  # SCHED_FIFO priority asked for the audio thread where
 MAIN_RT_PRIORITY = 5
 
 
-def engine_main(conn, config: dict) -> None:
+def engine_main(conn: Connection, config: dict[str, Any]) -> None:
     """Entry point of the engine process (multiprocessing 'spawn' target)."""
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # Ctrl-C reaches the whole process group: the UI decides
     _redirect_output(config.get("engine_log"))
@@ -74,11 +72,11 @@ def engine_main(conn, config: dict) -> None:
         host = EngineHost(conn, config)
         host.start()
     except HostError as err:
-        _send(conn, msgs.Fatal(str(err)))
+        send_to_link(conn, msgs.Fatal(str(err)))
         return
     except Exception as err:  # noqa: BLE001 - report anything as one line to the UI, details to stderr
         traceback.print_exc()
-        _send(conn, msgs.Fatal(f"the engine failed to start: {type(err).__name__}: {err}"))
+        send_to_link(conn, msgs.Fatal(f"the engine failed to start: {type(err).__name__}: {err}"))
         return
     signal.signal(signal.SIGTERM, lambda *_: host.request_stop())
     host.run()
@@ -109,21 +107,10 @@ def _env_int(name: str, default: int) -> int:
         return default
 
 
-def _send(conn, msg: msgs.Message) -> bool:
-    try:
-        conn.send(msg)
-        return True
-    except (OSError, EOFError, BrokenPipeError):
-        return False
+class EngineHost(AudioCallback, EnginePipe):
+    """One engine playing to one output, driven by one link; ``config`` is the dict the link built."""
 
-
-def _channel_message(status: int, data1: int, data2: int) -> bool:
-    """A channel-voice message's bytes (MIDI 1.0: status 0x80..0xEF, data bytes 0..127)."""
-    return 0x80 <= status <= 0xEF and 0 <= data1 <= 127 and 0 <= data2 <= 127
-
-
-class EngineHost:
-    def __init__(self, conn, config: dict):
+    def __init__(self, conn: Connection, config: dict[str, Any]):
         self.conn = conn
         self.config = config
         self.block = int(config["block"])
@@ -151,7 +138,7 @@ class EngineHost:
         self.midi = MidiInputs(config.get("midi_in") or "all", config.get("client_name") or "rtvoice")
         # Hand-over between threads.
         self._inbox: deque[msgs.Command] = deque()  # commands for the callback
-        self._midi_in: deque = deque()  # (arrival_s, status, d1, d2) from the UI
+        self._midi_in: deque[Arrival] = deque()  # from the UI
         self._outbox = self.engine.messages  # events from the callback (the engine's, and ours)
         self._notices: deque[msgs.Device | msgs.Respawn] = deque()  # from this process's main thread
         # The callback counts controller-map changes and the main thread sends the map when the
@@ -160,39 +147,14 @@ class EngineHost:
         self._controls_sent = 0
         self.dropped_commands = 0  # commands of no known kind or malformed, dropped
         self.dropped_events = 0  # the engine's events of no known kind, dropped
-        # Callback state, preallocated.
-        self._raw: list = []
-        self._events: list = []
-        self._held: list = []
-        self._gain = 0.0
-        self._gain_target = 1.0
-        self._gain_buf = np.empty(self.block)
-        self._idx = np.arange(1, self.block + 1, dtype=float)
-        self._abs = np.empty(self.block)
-        self.faded = False
         self.stopping = False
         self.stop_requested_at = 0.0
+        self._prepare_callback()
         self._ports_changed = False
         self._rec_reported = False
-        self.load = CallbackMeter(self.period_s)
-        self.render_load = CallbackMeter(self.period_s)  # the engine's share of it (the rest is the host's)
-        self.guard = NoteOnGuard(self.period_s)
-        self.voice_stage = VoiceStage()
         self.publisher = Publisher(self.board, self.ring, self.rate)
-        self.xruns = 0
-        self.late = 0  # callbacks that took longer than the block period
-        self.midi_events = 0
-        self.blocks = 0
-        self.voices_max = 0  # most voices sounding at the end of a block, over the run
-        self._peak_hold = 0.0
-        self._gr_hold = 0.0
-        self._ui_every = max(1, round(PUBLISH_EVERY_S / self.period_s))
-        self._error_texts: set[str] = set()
         self.started_at = time.monotonic()
-        self._rt_thread = None
-        self._last_end = self._last_took = 0.0  # perf_counter at the end of the last callback, its duration
         self._rt_wanted = _env_int(RT_PRIORITY_ENV, DEFAULT_RT_PRIORITY)
-        self.rt_priority = 0
         self.main_rt_priority = 0
         self._wakeup_fd: int | None = None
         self.cpu_wakeup = "not asked"  # what the CPU wake-up request got (see rtvoice.host.cpu_wakeup)
@@ -218,145 +180,6 @@ class EngineHost:
             for cc, value in ((midi.CC_RPN_MSB, 0), (midi.CC_RPN_LSB, 6), (midi.CC_DATA_ENTRY_MSB, members),
                               (midi.CC_RPN_MSB, 127), (midi.CC_RPN_LSB, 127)):
                 self._midi_in.append((now, status, cc, value))
-
-    def _send_ready(self) -> None:
-        _send(self.conn, msgs.Ready(
-            audio_port=self.route.label, audio_ports=tuple(self.route.ports), midi_ports=tuple(self.midi.names()),
-            notes=tuple(self.notes), rate_hz=int(self.rate), block_frames=self.block,
-            server_period_frames=int(self.server_period or 0),
-            lookahead_s=getattr(self.engine.stats, "latency_frames", 0) / self.rate,  # the limiter's delay
-            latency_s=float(getattr(self.route.output, "latency_s", 0.0)), pid=os.getpid(),
-            cpu_wakeup=self.cpu_wakeup, heap_frozen=self.heap_frozen, heap_walked=heap.full_collection_objects(),
-        ))
-        self.notes.clear()
-        self._send_controls()
-
-    def _send_controls(self) -> None:
-        _send(self.conn, msgs.Controls(tuple(self.controls.to_dicts())))
-
-    # -- the audio callback ----------------------------------------------------------------
-    def process(self, out, frames: int, underflow: bool, gen: int) -> None:
-        t_enter = time.perf_counter()
-        if self._rt_thread != threading.get_ident():
-            self._rt_thread = threading.get_ident()
-            self.rt_priority = request_realtime_priority(self._rt_wanted)
-        if gen != self.route.gen or frames != self.block:
-            if out is not None:
-                out.fill(0.0)
-            return
-        try:
-            self._process(out, underflow)
-        except Exception as err:  # noqa: BLE001 - never let an error stop the stream
-            if out is not None:
-                out.fill(0.0)
-            text = f"audio callback: {type(err).__name__}: {err}"
-            if text not in self._error_texts:
-                self._error_texts.add(text)
-                self._outbox.append(msgs.Error(text, traceback.format_exc()))
-        t_exit = time.perf_counter()
-        self._last_end, self._last_took = t_exit, t_exit - t_enter
-        if t_exit - t_enter > self.period_s:
-            self.late += 1  # this callback alone overran its period
-        self.load.add(t_exit - t_enter)
-
-    def _process(self, out, underflow: bool) -> None:
-        now = time.monotonic()
-        if underflow:
-            self.xruns += 1
-        clock = self.clock
-        clock.tick(now)
-        if self._inbox:
-            self._drain_inbox()
-        raw, events, held = self._raw, self._events, self._held
-        raw.clear()
-        events.clear()
-        if held:
-            events.extend(held)  # polled last block, due in this one
-            held.clear()
-        self.midi.poll(now, raw)
-        while self._midi_in:
-            raw.append(self._midi_in.popleft())
-        n = self.block
-        for arrival, status, d1, d2 in raw:
-            pos = clock.position(arrival)
-            if pos < n:
-                events.append((pos, status, d1, d2))
-            else:
-                held.append((pos - n, status, d1, d2))
-        if len(events) > 1:
-            events.sort(key=itemgetter(0))
-        self.guard.admit(events)  # a flood of note-ons must not stall the callback
-        self.midi_events += len(events)
-        t_render = time.perf_counter()
-        y = self.engine.render(events)
-        took = time.perf_counter() - t_render
-        self.guard.learn(took)
-        self.render_load.add(took)
-        steady = self._apply_gain(y)
-        if out is not None:
-            if out.shape[1] == 1:
-                out[:, 0] = y
-            else:
-                out[:] = y[:, None]
-        self.ring.push(y)
-        if steady:  # the limiter's own peak, scaled: two calls fewer per block
-            peak = self.engine.stats.peak * self._gain
-        else:
-            np.abs(y, out=self._abs)
-            peak = float(self._abs.max())
-        if peak > self._peak_hold:
-            self._peak_hold = peak
-        gr = self.engine.stats.gain_reduction_db
-        if gr > self._gr_hold:
-            self._gr_hold = gr
-        self.blocks += 1
-        voices = self.engine.stats.voices
-        if voices > self.voices_max:
-            self.voices_max = voices
-        if self.blocks % self._ui_every == 0:
-            self.voice_stage.stage(self.engine, self._gain)
-
-    def _apply_gain(self, y: np.ndarray) -> bool:
-        """The host's ramp-in and fade-out gain on ``y``, in place; True when it was one constant."""
-        g, target = self._gain, self._gain_target
-        if g == target:
-            if g != 1.0:
-                y *= g
-            if g == 0.0 and self.stopping:
-                self.faded = True
-            return True
-        rate = 1.0 / ((RAMP_IN_S if target > g else FADE_OUT_S) * self.rate)
-        buf = self._gain_buf
-        np.multiply(self._idx, rate if target > g else -rate, out=buf)
-        buf += g
-        if target > g:
-            np.minimum(buf, target, out=buf)
-        else:
-            np.maximum(buf, target, out=buf)
-        y *= buf
-        self._gain = float(buf[-1])
-        if self._gain == 0.0 and self.stopping:
-            self.faded = True
-        return False
-
-    def _drain_inbox(self) -> None:
-        engine = self.engine
-        while self._inbox:
-            try:
-                match self._inbox.popleft():
-                    case msgs.SetValue(name=name, value=value):
-                        engine.apply_settings(engine.settings.with_values({name: value}, source="set_value"))
-                    case msgs.LoadSound(settings=settings):
-                        engine.load_sound(settings)
-                        self._controls_changes += 1
-                    case msgs.Learn(target=target):
-                        self.controls.learn(target)
-                    case msgs.SetControls(entries=entries):
-                        self.controls.set_entries(entries)
-                        self._controls_changes += 1
-                    # nothing else reaches the inbox: _command admits only these four
-            except (SettingsError, ValueError) as err:
-                self._outbox.append(msgs.Error(str(err)))
 
     # -- the main thread ------------------------------------------------------------------
     def request_stop(self) -> None:
@@ -412,57 +235,6 @@ class EngineHost:
             if since <= room_end or since > 4 * self.period_s:  # room now, or no callbacks at all
                 return
             time.sleep(GAP_POLL_S)
-
-    def _command(self, cmd: object) -> None:
-        """One command from the link: MIDI and closing are handled here, sound and map changes by
-        the callback (which owns the engine). Anything malformed is counted and dropped."""
-        if not msgs.well_formed(cmd, command=True):
-            self.dropped_commands += 1
-            return
-        match cmd:
-            case msgs.MidiBytes(status=status, data1=d1, data2=d2) if _channel_message(status, d1, d2):
-                self._midi_in.append((time.monotonic(), status, d1, d2))
-            case msgs.AllNotesOff():
-                now = time.monotonic()
-                for ch in range(16):
-                    self._midi_in.append((now, midi.CONTROL_CHANGE | ch, midi.CC_SUSTAIN, 0))
-                    self._midi_in.append((now, midi.CONTROL_CHANGE | ch, midi.CC_ALL_NOTES_OFF, 0))
-            case msgs.Close():
-                self.request_stop()
-            case msgs.SetValue() | msgs.LoadSound() | msgs.Learn() | msgs.SetControls():
-                self._inbox.append(cmd)
-            case _:  # a MIDI message with a byte out of range
-                self.dropped_commands += 1
-
-    def _forward(self) -> None:
-        """Messages the callback left, and coalesced value changes, to the UI."""
-        while self._notices:
-            _send(self.conn, self._notices.popleft())
-        values: dict[str, Any] = {}
-        while self._outbox:
-            match self._outbox.popleft():
-                case msgs.Values(values=moved):
-                    values.update(moved)  # coalesced: the last value of each parameter is what counts
-                case msgs.Learned() as learned:
-                    _send(self.conn, replace(learned, entries=tuple(self.controls.to_dicts())))
-                case msgs.Error(trace=trace) as err:
-                    if trace:
-                        sys.stderr.write(trace)  # to the engine's log; the UI shows the line
-                    _send(self.conn, replace(err, trace=""))
-                case _:
-                    self.dropped_events += 1
-        if values:
-            _send(self.conn, msgs.Values(values))
-        changes = self._controls_changes
-        if changes != self._controls_sent:
-            self._controls_sent = changes
-            self._send_controls()
-        if self._ports_changed:
-            self._ports_changed = False
-            _send(self.conn, msgs.Ports(self.route.label, tuple(self.midi.names())))
-        if self.recorder is not None and self.recorder.error and not self._rec_reported:
-            self._rec_reported = True
-            _send(self.conn, msgs.Error(self.recorder.error))
 
     def _publish(self) -> None:
         peak, self._peak_hold = self._peak_hold, 0.0
@@ -523,7 +295,7 @@ class EngineHost:
             summary.update(record=str(self.recorder.path), record_seconds=self.recorder.seconds,
                            record_lost=self.recorder.lost)
         self._forward()
-        _send(self.conn, msgs.Closed(summary))
+        send_to_link(self.conn, msgs.Closed(summary))
         self.board.close()
         try:
             self.conn.close()

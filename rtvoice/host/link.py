@@ -1,7 +1,8 @@
-"""The UI side of the engine: start it in its own process, send it commands, read its meters.
+"""The UI side of the engine: send it commands, read its meters and what it has to say.
 
 The engine runs in a separate process (multiprocessing, 'spawn') so that no
-Python work in the UI ever holds the interpreter lock the audio callback needs.
+Python work in the UI ever holds the interpreter lock the audio callback needs;
+starting, replacing and stopping that process is :mod:`rtvoice.host.link_process`.
 Commands travel over a pipe; what the UI draws comes back through shared memory
 (:mod:`rtvoice.host.board`) and is read without waiting. Messages from the
 engine (controller learned, device lost, errors) queue up for
@@ -11,11 +12,10 @@ anything else arriving is counted in :attr:`EngineLink.dropped_messages` and dro
 
 from __future__ import annotations
 
-import multiprocessing
-import os
-import time
 from collections import deque
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, field
+from multiprocessing.connection import Connection
+from multiprocessing.process import BaseProcess
 from typing import Any
 
 import numpy as np
@@ -23,12 +23,11 @@ import numpy as np
 from rtvoice.engine import Settings, SettingsError, check_entries
 from rtvoice.host import messages as msgs
 from rtvoice.host.board import SILENT_DB, SPECTRUM_BINS, Board
-from rtvoice.host.errors import HostError, MidiMessageError
+from rtvoice.host.errors import MidiMessageError
+from rtvoice.host.link_process import LinkProcess, receive
 from rtvoice.host.options import parse_mpe
 from rtvoice.host.rates import DEFAULT_RATE_HZ, Latency
 
-START_TIMEOUT_S = 30.0  # spawning imports numpy and scipy: seconds on a slow machine
-CLOSE_TIMEOUT_S = 5.0
 DEFAULT_CLIENT_NAME = "rtvoice"
 
 
@@ -57,7 +56,7 @@ class Snapshot:
     engine_alive: bool = False
 
 
-class EngineLink:
+class EngineLink(LinkProcess):
     """Client of the engine process. Every method returns at once; none raises when the engine died,
     except :meth:`start` (and the validation in :meth:`set_value`)."""
 
@@ -73,132 +72,23 @@ class EngineLink:
             "client_name": client_name, "mpe": mpe,
             "engine_log": None if engine_log is None else str(engine_log),  # engine stdout/stderr go here
         }
-        self._process: multiprocessing.process.BaseProcess | None = None
-        self._conn = None
+        self._process: BaseProcess | None = None
+        self._conn: Connection | None = None
         self._board: Board | None = None
         self._messages: deque[msgs.Notice] = deque()
-        self._controls: list[dict] = []
+        self._controls: list[dict[str, Any]] = []
         self._audio_port = ""
         self._midi_ports: list[str] = []
         self._closed = False
         self.summary: dict[str, Any] = {}  # the engine's run summary, after close()
-        self._old: list = []  # processes that asked to be replaced, joined when they end
+        self._old: list[BaseProcess] = []  # processes that asked to be replaced, joined when they end
         self._respawning = False
         self._restarted = False
         self.ready_info: msgs.Ready | None = None  # what the engine reported when it started
         self.dropped_messages = 0  # what came over the pipe that was no message, or a malformed one
         self._spawned = False  # an engine was started before (a restarted one appends to --record)
 
-    # -- life cycle -------------------------------------------------------------------
-    def start(self) -> None:
-        """Spawn the engine process and wait until its audio runs; HostError says why not."""
-        if self.alive():
-            return
-        self._messages.clear()
-        self._spawn()
-        proc, conn = self._process, self._conn
-        deadline = time.monotonic() + START_TIMEOUT_S
-        while time.monotonic() < deadline:
-            if conn.poll(0.05):
-                try:
-                    msg = _recv(conn)
-                except (EOFError, OSError):
-                    break
-                if isinstance(msg, msgs.Fatal) and msgs.well_formed(msg):
-                    self._reap()
-                    raise HostError(msg.text)
-                if self._take(msg) and isinstance(msg, msgs.Ready):
-                    return
-            elif not proc.is_alive():
-                break
-        code = proc.exitcode
-        self._reap()
-        if code is None:
-            raise HostError(f"the engine process did not start within {START_TIMEOUT_S:.0f} s")
-        raise HostError(f"the engine process exited while starting (exit code {code})")
-
-    def _spawn(self) -> None:
-        """Start an engine process (not waiting for it) on the current sound and controller map."""
-        from rtvoice.host.engine_process import engine_main
-
-        ctx = multiprocessing.get_context("spawn")
-        parent, child = ctx.Pipe(duplex=True)
-        if self._board is None:
-            self._board = Board.create()
-        settings = self._settings
-        if self._controls and settings.controls is None:
-            settings = replace(settings, controls=tuple(self._controls))  # a learned map survives a restart
-        # A second engine of this link (restarted, or respawned when the audio server came
-        # back) appends to the take: what the first one recorded stays.
-        config = dict(self.config, settings=settings, board=self._board.name, record_append=self._spawned)
-        self._spawned = True
-        saved = os.environ.get("OPENBLAS_NUM_THREADS")
-        os.environ["OPENBLAS_NUM_THREADS"] = "1"  # inherited by the engine process: BLAS single-threaded
-        try:
-            proc = ctx.Process(target=engine_main, args=(child, config), name="rtvoice-engine", daemon=True)
-            proc.start()
-        finally:
-            if saved is None:
-                os.environ.pop("OPENBLAS_NUM_THREADS", None)
-            else:
-                os.environ["OPENBLAS_NUM_THREADS"] = saved
-        child.close()
-        self._process, self._conn, self._closed = proc, parent, False
-        self._respawning = False
-
-    def _respawn(self) -> None:
-        """The engine asked for a fresh process (its audio library is stuck on a lost server)."""
-        old = self._process
-        if self._conn is not None:
-            self._conn.close()
-        if old is not None:
-            self._old.append(old)
-        self._spawn()
-        self._restarted = True
-
-    def alive(self) -> bool:
-        return self._process is not None and not self._closed and self._process.is_alive()
-
-    def restart(self) -> None:
-        """Stop the engine if it still runs and start a new one with the current sound and controls."""
-        self.close()
-        self.start()
-
-    def close(self) -> None:
-        """Ask the engine to fade out and exit; wait a few seconds, then force it."""
-        proc = self._process
-        if proc is None:
-            return
-        if proc.is_alive():
-            self._send(msgs.Close())
-            deadline = time.monotonic() + CLOSE_TIMEOUT_S
-            while proc.is_alive() and time.monotonic() < deadline:
-                self._pump(0.05)
-        self._pump(0.0)
-        self._reap()
-
-    def _reap(self) -> None:
-        proc = self._process
-        if proc is not None:
-            proc.join(0.5)
-            if proc.is_alive():
-                proc.terminate()
-                proc.join(2.0)
-            if proc.is_alive():
-                proc.kill()
-                proc.join(2.0)
-        if self._conn is not None:
-            self._conn.close()
-        if self._board is not None:
-            self._board.close()
-        self._process, self._conn, self._board = None, None, None
-        self._closed = True
-        for old in self._old:
-            old.join(1.0)
-            if old.is_alive():
-                old.kill()
-        self._old.clear()
-
+    # -- what the engine reported at start-up -------------------------------------------
     @property
     def rate_hz(self) -> int:
         """The rate the engine plays at (it follows the output when no rate was asked for)."""
@@ -215,10 +105,6 @@ class EngineLink:
     def startup_notes(self) -> list[str]:
         """What the engine said at start-up (the rate it follows, outputs or inputs it could not open)."""
         return [] if self.ready_info is None else list(self.ready_info.notes)
-
-    @property
-    def exitcode(self) -> int | None:
-        return None if self._process is None else self._process.exitcode
 
     # -- commands ---------------------------------------------------------------------
     @property
@@ -304,7 +190,7 @@ class EngineLink:
         self._messages.clear()
         return out
 
-    # -- plumbing ---------------------------------------------------------------------
+    # -- the pipe: commands out, messages in --------------------------------------------
     def _send(self, command: msgs.Command) -> None:
         if self._conn is None or self._closed:
             return
@@ -319,7 +205,7 @@ class EngineLink:
             return
         try:
             while conn.poll(timeout_s):
-                self._take(_recv(conn))
+                self._take(receive(conn))
                 timeout_s = 0.0
         except (EOFError, OSError):
             if self._respawning and not self._closed:
@@ -381,17 +267,6 @@ class EngineLink:
                 self.dropped_messages += 1
                 return False
         return True
-
-
-def _recv(conn: Any) -> object:
-    """One object from the pipe; None when its bytes do not unpickle (counted as malformed by
-    :meth:`EngineLink._take`). A closed pipe still raises EOFError or OSError."""
-    try:
-        return conn.recv()
-    except (EOFError, OSError):
-        raise
-    except Exception:  # noqa: BLE001 - an unpickling error of any kind: a malformed message
-        return None
 
 
 def _check_byte(what: str, value: int) -> None:

@@ -19,8 +19,7 @@ import typing
 from dataclasses import dataclass, fields
 from typing import Any
 
-from rtvoice.engine import Settings
-from rtvoice.engine.events import Error, Learned, Values
+from rtvoice.engine import Error, Learned, Settings, Values
 from rtvoice.host.rates import Latency
 
 __all__ = [

@@ -27,7 +27,7 @@ import sys
 import time
 from dataclasses import dataclass, field
 
-from rtvoice.engine.midi import channel_messages
+from rtvoice.engine import channel_messages
 from rtvoice.host import jackinfo
 from rtvoice.host.timing import PortClock
 

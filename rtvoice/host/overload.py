@@ -26,7 +26,7 @@ from __future__ import annotations
 
 import math
 
-from rtvoice.engine.midi import NOTE_ON
+from rtvoice.engine import NOTE_ON
 
 BUDGET_SHARE = 0.12  # over time, note-ons may take this share of the callback's period
 #: Note-ons the bucket holds: a strum of 32 voices (the host target's scene) passes whole after a
