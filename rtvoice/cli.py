@@ -12,6 +12,7 @@ import difflib
 import importlib
 import sys
 import warnings
+from typing import NoReturn
 
 from rtvoice.commands import MODULES as COMMAND_MODULES  # in the order ``--help`` lists them
 
@@ -21,7 +22,7 @@ EXIT_BAD_INPUT = 2
 class OneLineParser(argparse.ArgumentParser):
     """An argument parser whose errors are one line, exit status 2, with a suggestion for a typing mistake."""
 
-    def error(self, message: str) -> None:  # type: ignore[override]
+    def error(self, message: str) -> NoReturn:
         sys.stderr.write(f"{self.prog}: error: {message} (see {self.prog} --help)\n")
         raise SystemExit(EXIT_BAD_INPUT)
 
@@ -30,13 +31,14 @@ class OneLineParser(argparse.ArgumentParser):
         try:
             super()._check_value(action, value)
         except argparse.ArgumentError as err:
-            close = difflib.get_close_matches(str(value), [str(c) for c in action.choices or ()], n=1)
+            choices = list(action.choices or ())
+            close = difflib.get_close_matches(str(value), [str(c) for c in choices], n=1)
             if not close:
                 raise
             raise argparse.ArgumentError(action, f"invalid choice: {value!r}; did you mean {close[0]!r}? "
-                                                 f"(choose from {', '.join(map(repr, action.choices))})") from err
+                                                 f"(choose from {', '.join(map(repr, choices))})") from err
 
-    def parse_known_args(self, args=None, namespace=None):  # type: ignore[override]
+    def parse_known_args(self, args=None, namespace=None):
         if self._subparsers is None:  # a command's own parser: it knows every option the command takes
             self._refuse_mistyped_option(sys.argv[1:] if args is None else list(args))
         return super().parse_known_args(args, namespace)
@@ -68,6 +70,14 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+def _command_names(parser: argparse.ArgumentParser) -> list[str]:
+    """The subcommands :func:`build_parser` registered, from argparse's subparsers action."""
+    for action in parser._actions:
+        if isinstance(action, argparse._SubParsersAction):
+            return list(action.choices)
+    return []
+
+
 def _one_line_warning(message, category, filename, lineno, file=None, line=None) -> None:
     """Warnings meant for the user (e.g. a preset from a newer version) as one line, without source lines."""
     (file or sys.stderr).write(f"rtvoice: warning: {message}\n")
@@ -77,7 +87,7 @@ def main(argv: list[str] | None = None) -> int:
     argv = sys.argv[1:] if argv is None else argv
     warnings.showwarning = _one_line_warning
     parser = build_parser()
-    commands = parser._subparsers._group_actions[0].choices
+    commands = _command_names(parser)
     if "play" in commands and (not argv or (argv[0].startswith("-") and argv[0] not in ("-h", "--help"))):
         argv = ["play", *argv]  # plain rtvoice is rtvoice play, options and all (rtvoice --preset NAME)
     args = parser.parse_args(argv)

@@ -26,8 +26,7 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.signal
 
-from rtvoice.engine import Engine, sounding_partials
-from rtvoice.engine.output import Limiter, dc_blocker, electronics_filter
+from rtvoice.engine import Engine, Limiter, dc_blocker, electronics_filter, sounding_partials
 from rtvoice.physics.damping import loss_coefficients
 
 

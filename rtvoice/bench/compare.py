@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import time
+from typing import Any
 
 from rtvoice.bench.baselines import (
     KarplusStrongBank,
@@ -37,7 +38,7 @@ def compare_at(voices: int, modes: int, block: int, repeats: int, budget_s: floa
     engine_ramped = time_calls(ramped.render, repeats, 20, between=ramped.swing)
     source = HeldChord.start(voices, modes, block, ramps=False).engine
     partials = partials_of(source)
-    result = {
+    result: dict[str, Any] = {
         "voices": voices, "modes_per_voice": modes, "total_modes": voices * modes, "block": block,
         "engine_steady": engine_steady.as_dict(), "engine_features_on": engine_ramped.as_dict(),
         "baselines": {},

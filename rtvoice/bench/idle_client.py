@@ -42,7 +42,10 @@ def run(seconds: float, block: int = 128, rate: int = 48000) -> dict:
     if sd is None:
         raise RuntimeError(reason)
     silence = _Silence()
-    output = PortAudioOutput(sd, find_device(sd, "system"), rate, block, silence)
+    device = find_device(sd, "system")  # a name given: a dict, or HostError when none or several match
+    if device is None:
+        raise RuntimeError("no audio output device named 'system'")
+    output = PortAudioOutput(sd, device, rate, block, silence)
     fd, _ = cpu_wakeup.request_from_environment()
     output.start()
     start = time.monotonic()

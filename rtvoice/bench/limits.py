@@ -19,7 +19,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from rtvoice.bench.timing import Timing, time_calls
-from rtvoice.engine.voices import block_split
+from rtvoice.engine import block_split
 
 COMPLEX64_BYTES = 8
 

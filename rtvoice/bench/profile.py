@@ -18,7 +18,7 @@ import numpy as np
 
 from rtvoice.bench.scenes import HeldChord
 from rtvoice.bench.timing import time_calls
-from rtvoice.engine.output import Limiter
+from rtvoice.engine import Limiter
 
 #: (the engine's part, its method) timed as a stage: "" is the engine itself.
 STAGES = (("glide", "step"), ("voice_renderer", "render_bulk"), ("", "_finish"), ("housekeeping", "after_block"),

@@ -7,15 +7,16 @@ import math
 import sys
 from pathlib import Path
 
-from rtvoice.engine import Settings, apply_assignments
-from rtvoice.engine.presets import (
+from rtvoice.engine import (
     PresetError,
+    Settings,
+    apply_assignments,
     list_presets,
     load_preset,
+    parse_note,
     preset_text,
     read_preset_file,
 )
-from rtvoice.engine.units import parse_note
 from rtvoice.offline import ab_render
 from rtvoice.offline.files import WAV_MAX_FRAMES, RenderError, write_blocks
 from rtvoice.offline.midifile import read_midi_events

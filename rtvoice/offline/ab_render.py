@@ -23,8 +23,7 @@ from pathlib import Path
 
 import numpy as np
 
-from rtvoice.engine import Settings, apply_assignments
-from rtvoice.engine.presets import load_preset
+from rtvoice.engine import Settings, apply_assignments, load_preset
 from rtvoice.offline.files import RenderError, write_blocks
 from rtvoice.offline.options import output_path, preset_arg
 from rtvoice.offline.render import PROGRESS_ABOVE_S, iter_blocks, text_progress

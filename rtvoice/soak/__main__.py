@@ -60,17 +60,18 @@ def main(argv: list[str] | None = None) -> int:
         return show
 
     if args.offline_minutes > 0:
-        cfg = OfflineConfig(audio_s=60 * args.offline_minutes, seed=args.seed, trace_memory=not args.no_tracemalloc,
-                            rebuild_every=args.rebuild_every if args.rebuild_every > 0 else 10**9)
-        offline = run_offline(cfg, progress("offline"))
+        offline_cfg = OfflineConfig(audio_s=60 * args.offline_minutes, seed=args.seed,
+                                    trace_memory=not args.no_tracemalloc,
+                                    rebuild_every=args.rebuild_every if args.rebuild_every > 0 else 10**9)
+        offline = run_offline(offline_cfg, progress("offline"))
         sys.stderr.write("\n")
     if args.realtime_minutes > 0:
         work = args.workdir or tempfile.mkdtemp(prefix="rtvoice-soak-")
-        cfg = RealtimeConfig(seconds=60 * args.realtime_minutes, baseline_s=args.baseline_seconds, seed=args.seed,
-                             rate=args.rate, block=args.block, workdir=work, server_log=args.server_log,
-                             bursts=not args.no_realtime_bursts)
+        realtime_cfg = RealtimeConfig(seconds=60 * args.realtime_minutes, baseline_s=args.baseline_seconds,
+                                      seed=args.seed, rate=args.rate, block=args.block, workdir=work,
+                                      server_log=args.server_log, bursts=not args.no_realtime_bursts)
         sys.stderr.write(f"[soak] real time: host log and recording in {work}\n")
-        realtime = run_realtime(cfg, progress("real time"))
+        realtime = run_realtime(realtime_cfg, progress("real time"))
         sys.stderr.write("\n")
     print(table(offline, realtime))
     if args.json:

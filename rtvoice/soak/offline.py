@@ -17,9 +17,7 @@ from dataclasses import asdict, dataclass, field
 
 import numpy as np
 
-from rtvoice.engine import CEILING, Engine, Settings, SettingsError, pool_token
-from rtvoice.engine.events import Values
-from rtvoice.engine.presets import list_presets, load_preset
+from rtvoice.engine import CEILING, Engine, Settings, SettingsError, Values, list_presets, load_preset, pool_token
 from rtvoice.soak.held import HeldNote
 from rtvoice.soak.memory import MemorySampler
 from rtvoice.soak.traffic import RandomTraffic
@@ -226,8 +224,9 @@ def run_offline(config: OfflineConfig | None = None, progress=None) -> OfflineRe
             held.start(b, hold_settings)
             next_pluck = b + seg_blocks
             held.check(engine, b)
-        elif (b - held.current.start_block) % check_blocks == 0 or b + 1 == next_pluck or b + 1 == blocks:
-            held.check(engine, b)
+        elif held.current is not None and (
+                (b - held.current.start_block) % check_blocks == 0 or b + 1 == next_pluck or b + 1 == blocks):
+            held.check(engine, b)  # (block 0 plucks, so a segment is always open here; check skips none)
         if held.current is not None and held.current.cut_short:
             next_pluck = min(next_pluck, b + 1)  # stolen (a flood steals every older voice): pluck again
         if b % mem_every == 0 or b + 1 == blocks:

@@ -102,7 +102,7 @@ class RealtimeResult:
         """The xrun criterion: a timing figure, judged by scripts/soak, not by the test suite
         (the project's rule: speed is checked by benchmarks, never by timed tests)."""
         out = []
-        if self.host_late_soak is not None:
+        if self.host_late_soak is not None and self.host_late_limit is not None:  # set together
             # The server names the late client: judge the host by its own audio client.
             if self.host_late_soak > self.host_late_limit:
                 out.append(f"the host's audio client was late {self.host_late_soak} times in {self.soak_s:.0f} s "
@@ -291,7 +291,7 @@ def run_realtime(cfg: RealtimeConfig | None = None, progress=None) -> RealtimeRe
         _soak(sender, cfg.seconds, cfg, res, progress, seed=cfg.seed, measure=True)
         x2, s2, t2 = _status_xruns_after(host), _server_log_size(cfg.server_log), time.monotonic()
         res.soak_s, res.xruns_soak = t2 - t1, x2 - x1
-        if s0 is not None and s1 is not None and s2 is not None:
+        if cfg.server_log and s0 is not None and s1 is not None and s2 is not None:  # sizes imply a log
             res.server_xruns_baseline, res.late_baseline = _server_slice(cfg.server_log, s0, s1)
             res.server_xruns_soak, res.late_soak = _server_slice(cfg.server_log, s1, s2)
             res.host_late_baseline = res.late_baseline.get(host.name, 0)

@@ -17,7 +17,7 @@ from pathlib import Path
 
 import numpy as np
 
-from rtvoice.engine.schema import PARAMS
+from rtvoice.engine import PARAMS
 from rtvoice.survey.result import SurveyResult
 
 COLUMNS = (
@@ -40,7 +40,10 @@ COLUMNS = (
 )
 
 
-_NUMBERS = np.array([str(k) for k in range(1, int(PARAMS["string.modes"].high) + 1)], dtype=object)
+_MAX_MODES = PARAMS["string.modes"].high
+if _MAX_MODES is None:  # the schema bounds the mode count; the harmonic numbers below need that bound
+    raise RuntimeError("schema parameter 'string.modes' has no upper bound")
+_NUMBERS = np.array([str(k) for k in range(1, int(_MAX_MODES) + 1)], dtype=object)
 
 
 def missing_text(flags: np.ndarray) -> str:

@@ -37,7 +37,7 @@ class Descriptors:
     missing: np.ndarray  # bool, one per harmonic (last axis)
 
 
-def _db_ratio(num: np.ndarray, den: np.ndarray) -> np.ndarray:
+def _db_ratio(num: np.ndarray, den: np.ndarray | float) -> np.ndarray:
     with np.errstate(divide="ignore", invalid="ignore"):
         return 10.0 * np.log10(num / den)
 

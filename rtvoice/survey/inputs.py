@@ -19,8 +19,7 @@ from typing import Any
 
 import numpy as np
 
-from rtvoice.engine.schema import PARAMS, PICKUP_FIELDS
-from rtvoice.engine.units import MM_PER_UNIT, allowed_text, in_unit, parse_note, split_unit
+from rtvoice.engine import MM_PER_UNIT, PARAMS, PICKUP_FIELDS, Param, allowed_text, in_unit, parse_note, split_unit
 from rtvoice.errors import UserError
 
 MAX_AXIS_POINTS = 10_000
@@ -38,11 +37,26 @@ class SurveyError(UserError, ValueError):
         super().__init__(reason, source=source, key=key, value=value, allowed=allowed)
 
 
+@dataclass(frozen=True)
+class _Range:
+    """A schema parameter's bounds (fractions of the scale length), both of them present."""
+
+    low: float
+    high: float
+
+
+def _range_of(param: Param) -> _Range:
+    """``param``'s bounds; a length the survey varies must have both (checked once, at import)."""
+    if param.low is None or param.high is None:
+        raise RuntimeError(f"schema parameter {param.name!r} has no range: a survey length needs both bounds")
+    return _Range(param.low, param.high)
+
+
 #: Which schema parameter bounds each kind of length.
 _BOUNDS = {
-    "pickup": PICKUP_FIELDS["position"],
-    "pluck": PARAMS["excitation.position"],
-    "width": PICKUP_FIELDS["width"],
+    "pickup": _range_of(PICKUP_FIELDS["position"]),
+    "pluck": _range_of(PARAMS["excitation.position"]),
+    "width": _range_of(PICKUP_FIELDS["width"]),
 }
 _WHAT = {"pickup": "pickup position", "pluck": "pluck position", "width": "pickup width"}
 

@@ -16,8 +16,7 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.signal
 
-from rtvoice.engine import OUTPUT_SCALE, Settings, initial_amplitudes, resonance_of
-from rtvoice.engine.output import dc_blocker, electronics_filter
+from rtvoice.engine import OUTPUT_SCALE, Settings, dc_blocker, electronics_filter, initial_amplitudes, resonance_of
 from rtvoice.physics.damping import decay_rate_per_s, loss_coefficients
 from rtvoice.physics.modes import mode_frequencies_hz, playable_mode_count
 from rtvoice.physics.pickup import pickup_weights
@@ -98,7 +97,7 @@ class EngineModel:
             self._gain * _response(self._dc, freqs, self.fs),
         )
 
-    def initial_amplitudes(self, pluck_positions: Sequence[float]) -> np.ndarray:
+    def initial_amplitudes(self, pluck_positions: Sequence[float] | np.ndarray) -> np.ndarray:
         """Initial complex amplitudes s_k at full velocity, shape (n_pluck, string.modes).
 
         Formed where every note-on forms them (:func:`rtvoice.engine.initial_amplitudes`), so
@@ -109,7 +108,8 @@ class EngineModel:
             out[i] = initial_amplitudes(self.settings, self.n_modes, position=float(p))
         return out
 
-    def pickup_weights(self, modes: NoteModes, positions: Sequence[float], width: float, sensing: str) -> np.ndarray:
+    def pickup_weights(self, modes: NoteModes, positions: Sequence[float] | np.ndarray, width: float,
+                       sensing: str) -> np.ndarray:
         """Complex pickup weights g_k of the summed pickups, shape (n_positions, modes.count)."""
         k = np.arange(1, modes.count + 1, dtype=float)
         omega = 2 * np.pi * modes.freqs_hz

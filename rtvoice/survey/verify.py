@@ -37,7 +37,7 @@ def fit_mode_amplitudes(
     fs: float,
     freqs_hz: np.ndarray,
     sigma_per_s: np.ndarray,
-    extra_poles: Sequence[complex] = (),
+    extra_poles: Sequence[complex] | np.ndarray = (),
 ) -> tuple[np.ndarray, float]:
     """(c_k, residual fraction) of x[n] ~ sum_k Re(c_k exp((-sigma_k + 2 pi i f_k) n / fs)) + ...
 

@@ -24,7 +24,6 @@ from textual.widgets import ContentSwitcher, Footer, Input
 from rtvoice.engine import Settings, SettingsError
 from rtvoice.host.messages import Device, Error, Exited, Learned, Notice
 from rtvoice.ui import userstate
-from rtvoice.ui.compare import SlotComparison
 from rtvoice.ui.guard import log_error, ui_log_path
 from rtvoice.ui.keeping import AppGuard
 from rtvoice.ui.keyboard import OCTAVE_DOWN, OCTAVE_UP, KeyboardPlayer
@@ -112,10 +111,10 @@ class RtvoiceApp(AppGuard, LivePicture, SoundEditing, PresetActions, App[int]):
         self.learning: str | None = None
         self.last_note = NO_NOTE_DEFAULT
         self.frames = 0
-        self._predicted_key: tuple | None = None
+        self._predicted_key = None
         self._predicted = np.zeros(0)
-        self._compared_key: tuple | None = None
-        self._compared: SlotComparison | None = None
+        self._compared_key = None
+        self._compared = None
         self._snap = None
         self._engine_down_said = False
         self._quit_asked = False
@@ -311,7 +310,7 @@ class RtvoiceApp(AppGuard, LivePicture, SoundEditing, PresetActions, App[int]):
         self._quit_asked = True
         names = " and ".join(f"slot {s}" for s in unsaved)
 
-        def done(yes: bool) -> None:
+        def done(yes: bool | None) -> None:
             self._quit_asked = False
             if yes:
                 self.exit(0)

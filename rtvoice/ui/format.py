@@ -5,8 +5,7 @@ from __future__ import annotations
 import math
 from typing import Any
 
-from rtvoice.engine.schema import Param
-from rtvoice.engine.units import NOTE_NAMES, note_name  # one note naming for the UI and the command line
+from rtvoice.engine import NOTE_NAMES, Param, note_name  # one note naming for the UI and the command line
 
 __all__ = ["NOTE_NAMES", "db_text", "note_name", "position_text", "value_text"]
 

@@ -55,6 +55,7 @@ class Guarded:
 
     async def _dispatch_message(self, message: Any) -> None:
         try:
+            # A mixin: the next class in the MRO is Textual's widget, screen or app, unknown here.
             await super()._dispatch_message(message)  # type: ignore[misc]
         except Exception as err:
             if isinstance(message, events.Compose):  # a layout that cannot be built is no screen to play on

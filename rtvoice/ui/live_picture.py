@@ -4,19 +4,25 @@ the meters, and the top line; a climbing xrun count is explained on the message 
 
 A mixin for :class:`rtvoice.ui.app.RtvoiceApp`, which provides the widgets (``bars``, ``spectrum``,
 ``compare``, ``views``, ``meters``, ``sound_line``, ``string_view``, ``params``), ``engine``,
-``session``, ``player`` and the message line.
+``session``, ``player`` and the message line (declared in :mod:`rtvoice.ui.app_parts`).
 """
 
 from __future__ import annotations
+
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from rtvoice.engine import SettingsError
 from rtvoice.physics.modes import unstiffened_f0_hz
+from rtvoice.ui.app_parts import AppParts
 from rtvoice.ui.compare import SlotComparison, compare_slots
 from rtvoice.ui.format import note_name
 from rtvoice.ui.prediction import predicted_levels_db
 from rtvoice.ui.words import xrun_note
+
+if TYPE_CHECKING:
+    from rtvoice.host.link import Snapshot
 
 METER_EVERY = 3  # numbers are read, not watched: 10 updates a second are plenty
 XRUN_NOTE_EVERY_S = 5.0  # a climbing xrun count is explained at most this often
@@ -24,7 +30,7 @@ STARTUP_XRUNS_S = 2.0  # xruns in the UI's first seconds (the stream starting) a
 PREDICTED_MIN = 32  # harmonics predicted even when fewer fit on screen
 
 
-class LivePicture:
+class LivePicture(AppParts):
     """What the app draws from the running engine, frame by frame."""
 
     def _title_views(self, caption: str = "") -> None:
@@ -72,7 +78,7 @@ class LivePicture:
         self._snap = snap
         self._draw_live(snap)
 
-    def _explain_xruns(self, snap) -> None:
+    def _explain_xruns(self, snap: Snapshot) -> None:
         """When the xrun count climbs, say why: rtvoice's own callback overran its period (``late``
         climbed too), or it finished in time and the machine or the audio server held it up."""
         xruns, late = int(getattr(snap, "xruns", 0)), int(getattr(snap, "late", 0))
@@ -88,7 +94,7 @@ class LivePicture:
         self.say_error(xrun_note(xruns - seen_xruns, xruns, late - seen_late))
         self._xrun_seen = (xruns, late, now)
 
-    def _draw_live(self, snap) -> None:
+    def _draw_live(self, snap: Snapshot | None) -> None:
         """Bars (or spectrum), their title and the top line, from ``snap`` and the sound now set."""
         if snap is None:
             return

@@ -4,17 +4,21 @@
 factory presets read-only); a failure is reported and leaves the sound as it was.
 
 A mixin for :class:`rtvoice.ui.app.RtvoiceApp`, which provides ``session``, ``say``,
-``say_error``, ``_use_sound``, ``_refresh_sound`` and ``push_screen``.
+``say_error``, ``_use_sound``, ``_refresh_sound`` and ``push_screen`` (declared in
+:mod:`rtvoice.ui.app_parts`).
 """
 
 from __future__ import annotations
 
+from collections.abc import Callable
+
 from rtvoice.engine import SettingsError, presets
+from rtvoice.ui.app_parts import AppParts
 from rtvoice.ui.screens.dialogs import AskScreen, PromptScreen
 from rtvoice.ui.screens.presets import PresetChoice, PresetScreen
 
 
-class PresetActions:
+class PresetActions(AppParts):
     """Save and manage presets from the UI."""
 
     def action_save(self) -> None:
@@ -87,7 +91,7 @@ class PresetActions:
         elif choice.action == "rename":
             self._rename(choice)
 
-    def _confirm_discard(self, what: str, then) -> None:
+    def _confirm_discard(self, what: str, then: Callable[[], None]) -> None:
         if not self.session.dirty:
             then()
             return
@@ -97,6 +101,9 @@ class PresetActions:
                          lambda yes: then() if yes else None)
 
     def _load(self, choice: PresetChoice) -> None:
+        if choice.info is None:  # the preset list refuses "load" with nothing chosen; nothing to load
+            self.say_error("no preset chosen")
+            return
         try:
             self.session.load_info(choice.info)
         except (presets.PresetError, SettingsError) as err:
@@ -121,7 +128,7 @@ class PresetActions:
             self.say_error(f"{choice.name!r} is a factory preset and cannot be deleted")
             return
 
-        def done(yes: bool) -> None:
+        def done(yes: bool | None) -> None:
             if not yes:
                 return
             try:

@@ -3,7 +3,7 @@ sound after a load or flip. Every change is validated by the session first; only
 reaches the engine, and a refused one is reported and changes nothing.
 
 A mixin for :class:`rtvoice.ui.app.RtvoiceApp`, which provides ``session``, ``engine``, ``params``,
-``push_screen``, ``say``, ``say_error`` and ``_refresh_sound``.
+``push_screen``, ``say``, ``say_error`` and ``_refresh_sound`` (declared in :mod:`rtvoice.ui.app_parts`).
 """
 
 from __future__ import annotations
@@ -11,8 +11,8 @@ from __future__ import annotations
 import math
 from typing import Any
 
-from rtvoice.engine import SettingsError, apply_assignments
-from rtvoice.engine.schema import MAX_PICKUPS, lookup
+from rtvoice.engine import MAX_PICKUPS, Param, SettingsError, apply_assignments, lookup
+from rtvoice.ui.app_parts import AppParts
 from rtvoice.ui.screens.dialogs import PromptScreen
 from rtvoice.ui.stepping import stepped
 from rtvoice.ui.widgets.params import PICKUP_COUNT, ParamTable
@@ -20,7 +20,7 @@ from rtvoice.ui.widgets.string_view import StringView, clamp_to_range
 from rtvoice.ui.words import said_value
 
 
-class SoundEditing:
+class SoundEditing(AppParts):
     """Changing the sound from the string view, the parameter list and typed values."""
 
     # -- changing the sound ----------------------------------------------------------
@@ -122,7 +122,7 @@ class SoundEditing:
                                       check=lambda t: self.check_typed(name, t)), done)
 
 
-def _typed_form(param, value: Any) -> str:
+def _typed_form(param: Param, value: Any) -> str:
     """A value as it would be typed back (TOML-like)."""
     if param.kind == "shape":
         return "[" + ", ".join(f"[{x:g}, {y:g}]" for x, y in value) + "]"

@@ -5,7 +5,7 @@ from __future__ import annotations
 import math
 from typing import Any
 
-from rtvoice.engine.schema import Param
+from rtvoice.engine import Param
 
 LINEAR_STEPS = 100  # a coarse step is 1 % of the range
 LOG_STEP_RATIO = 2 ** (1 / 6)  # a coarse step on a log scale: a sixth of an octave

@@ -12,7 +12,7 @@ from pathlib import Path
 
 import tomli_w
 
-from rtvoice.engine.presets import PresetError, write_atomic
+from rtvoice.engine import PresetError, write_atomic
 
 STATE_FILE = "ui-state.toml"
 SAFETY_KEY = "listening_note_read"

@@ -12,7 +12,7 @@ from textual.screen import ModalScreen
 from textual.widgets import Button, Footer, Input, OptionList, Static
 from textual.widgets.option_list import Option
 
-from rtvoice.engine.presets import PresetError, PresetInfo, PresetWarning, read_preset_file
+from rtvoice.engine import PresetError, PresetInfo, PresetWarning, read_preset_file
 from rtvoice.ui.guard import Guarded
 
 ACTIONS = ("load", "save_as", "rename", "delete", "revert")
@@ -129,7 +129,10 @@ class PresetScreen(Guarded, ModalScreen[PresetChoice | None]):
         options = self.query_one(OptionList)
         if options.highlighted is None:
             return None
-        origin, name = options.get_option_at_index(options.highlighted).id.split(":", 1)
+        option_id = options.get_option_at_index(options.highlighted).id
+        if option_id is None:  # every option is added with "origin:name" as its id; one without names none
+            return None
+        origin, name = option_id.split(":", 1)
         return next((p for p in self.presets if p.name == name and p.origin == origin), None)
 
     def action_choose(self, action: str) -> None:

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from typing import Any
+
 import numpy as np
 from rich.segment import Segment
 from rich.style import Style
@@ -34,12 +36,12 @@ class HarmonicBars(Guarded, Widget):
     HarmonicBars { height: 1fr; min-height: 5; }
     """
 
-    def __init__(self, **kwargs):
+    def __init__(self, **kwargs: Any) -> None:
         super().__init__(**kwargs)
         self.live_db: np.ndarray = np.zeros(0)
         self.predicted_db: np.ndarray = np.zeros(0)
         self._strips: list[Strip] = []
-        self._drawn_for: tuple = ()
+        self._drawn_for: tuple[int, ...] = ()  # (width, height) the strips were drawn at; () before the first
 
     def harmonics_shown(self) -> int:
         """How many harmonics fit in the current width."""

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from typing import Any
+
 from textual.app import ComposeResult
 from textual.containers import Vertical
 from textual.widgets import Static
@@ -20,7 +22,7 @@ class CompareView(Guarded, Vertical):
     CompareView > Static { height: 3; }
     """
 
-    def __init__(self, **kwargs):
+    def __init__(self, **kwargs: Any) -> None:
         super().__init__(**kwargs)
         self.bars = HarmonicBars(id="compare-bars")
         self.differences = Static("", id="compare-text")

@@ -24,12 +24,13 @@ _EIGHTHS = np.array(list(EIGHTHS))
 _LINES = np.array([" ", " ", HALF_LINE, HALF_LINE, HALF_LINE, HALF_LINE, FULL_LINE, FULL_LINE, FULL_LINE])
 
 
-def solid_row(heights_eighths: np.ndarray, row_from_bottom: int) -> np.ndarray:
-    """:func:`solid_cell` for a whole row at once (an array of one-character strings)."""
+def solid_row(heights_eighths: np.ndarray, row_from_bottom: int | np.ndarray) -> np.ndarray:
+    """:func:`solid_cell` for a whole row at once (an array of one-character strings); a column of
+    row numbers (shape (rows, 1)) against a row of heights draws every row at once."""
     return _EIGHTHS[np.clip(heights_eighths - 8 * row_from_bottom, 0, 8)]
 
 
-def line_row(heights_eighths: np.ndarray, row_from_bottom: int) -> np.ndarray:
+def line_row(heights_eighths: np.ndarray, row_from_bottom: int | np.ndarray) -> np.ndarray:
     """:func:`line_cell` for a whole row at once."""
     return _LINES[np.clip(heights_eighths - 8 * row_from_bottom, 0, 8)]
 

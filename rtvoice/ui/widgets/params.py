@@ -6,8 +6,7 @@ from textual.binding import Binding
 from textual.message import Message
 from textual.widgets import DataTable
 
-from rtvoice.engine import Settings
-from rtvoice.engine.schema import MAX_PICKUPS, lookup
+from rtvoice.engine import MAX_PICKUPS, Settings, lookup
 from rtvoice.ui.format import value_text
 from rtvoice.ui.guard import Guarded
 

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from typing import Any
+
 from rich.text import Text
 from textual.widget import Widget
 
@@ -19,11 +21,11 @@ class SoundLine(Guarded, Widget):
     SoundLine { height: 1; background: $boost; }
     """
 
-    def __init__(self, **kwargs):
+    def __init__(self, **kwargs: Any) -> None:
         super().__init__(**kwargs)
-        self.fields: dict = {}
+        self.fields: dict[str, Any] = {}
 
-    def show(self, **fields) -> None:
+    def show(self, **fields: Any) -> None:
         if fields != self.fields:
             self.fields = fields
             self.refresh()

@@ -15,8 +15,7 @@ from textual.binding import Binding
 from textual.message import Message
 from textual.widget import Widget
 
-from rtvoice.engine import Settings
-from rtvoice.engine.schema import lookup
+from rtvoice.engine import Settings, lookup
 from rtvoice.ui.guard import Guarded
 
 BRIDGE_LABEL, NUT_LABEL = "bridge ", " nut"
@@ -39,9 +38,16 @@ class Element:
 
 
 def clamp_to_range(name: str, value: float) -> float:
-    """Hold a dragged or nudged value inside its range (typed values are checked, not held)."""
+    """Hold a dragged or nudged value inside its range (typed values are checked, not held).
+
+    A side without a bound (``low`` or ``high`` None in the schema) holds nothing back, as the
+    schema's own check reads it."""
     param, _ = lookup(name)
-    return min(max(value, param.low), param.high)
+    if param.low is not None:
+        value = max(value, param.low)
+    if param.high is not None:
+        value = min(value, param.high)
+    return value
 
 
 def elements_of(settings: Settings) -> list[Element]:
