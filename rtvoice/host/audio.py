@@ -14,6 +14,7 @@ import sys
 import threading
 import time
 from collections.abc import Callable
+from typing import Protocol
 
 from rtvoice.host.errors import HostError
 
@@ -24,6 +25,22 @@ INSTALL_HINTS = {
 }
 
 Process = Callable[[object, int, bool], None]
+
+
+class OutputStream(Protocol):
+    """What the host uses of a sounddevice.OutputStream (sounddevice ships no type information)."""
+
+    @property
+    def latency(self) -> float: ...
+
+    @property
+    def active(self) -> bool: ...
+
+    def start(self) -> None: ...
+
+    def abort(self) -> None: ...
+
+    def close(self) -> None: ...
 
 
 def request_realtime_priority(priority: int) -> int:
@@ -146,7 +163,7 @@ class PortAudioOutput:
         self.sd, self.device, self.rate, self.block = sd, device, rate, block
         self.channels = min(2, int(device["max_output_channels"]))
         self._process = process
-        self.stream = None
+        self.stream: OutputStream | None = None
         self.callbacks = 0
 
     def describe(self) -> str:

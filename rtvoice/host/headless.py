@@ -54,7 +54,7 @@ def message_line(msg: Notice) -> str:
 
 def run_headless(link: EngineLink, duration_s: float | None = None, out=sys.stderr) -> int:
     """Run until Ctrl-C, SIGTERM, ``duration_s`` or the engine's death; returns the exit status."""
-    stop = {"why": None}
+    stop: dict[str, str | None] = {"why": None}  # why the loop ended: a signal's name, "duration"; None: running
 
     def on_signal(signum, _frame):
         stop["why"] = signal.Signals(signum).name

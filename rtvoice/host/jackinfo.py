@@ -10,18 +10,19 @@ from __future__ import annotations
 
 import ctypes
 import ctypes.util
+from typing import Literal
 
 JACK_NO_START_SERVER = 0x01
 PORT_IS_INPUT, PORT_IS_OUTPUT, PORT_IS_PHYSICAL = 0x1, 0x2, 0x4
 MIDI_TYPE = b"8 bit raw midi"
 AUDIO_TYPE = b"32 bit float mono audio"
 
-_lib = None
-_client = None
-_silence = None
+_lib: ctypes.CDLL | Literal[False] | None = None  # False: libjack cannot load (not tried again)
+_client: int | None = None  # a jack_client_t pointer
+_silence: object = None  # the error/info callback handed to libjack, kept alive here
 
 
-def _load():
+def _load() -> ctypes.CDLL | None:
     global _lib, _silence
     if _lib is None:
         name = ctypes.util.find_library("jack") or "libjack.so.0"
@@ -51,7 +52,7 @@ def _load():
     return _lib or None
 
 
-def _connect(name: bytes = b"rtvoice-info"):
+def _connect(name: bytes = b"rtvoice-info") -> int | None:
     global _client
     lib = _load()
     if lib is None:
@@ -68,42 +69,43 @@ def server_running() -> bool:
 
 def server_format() -> tuple[int, int] | None:
     """(sample rate Hz, period frames) of the running server, or None."""
-    client = _connect()
-    if client is None:
+    client, lib = _connect(), _load()
+    if client is None or lib is None:
         return None
-    return int(_lib.jack_get_sample_rate(client)), int(_lib.jack_get_buffer_size(client))
+    return int(lib.jack_get_sample_rate(client)), int(lib.jack_get_buffer_size(client))
 
 
 def ports(kind: bytes = MIDI_TYPE, flags: int = 0, pattern: str | None = None) -> list[str]:
     """Full names of the ports of ``kind`` having all ``flags`` (e.g. PORT_IS_OUTPUT | PORT_IS_PHYSICAL)."""
-    client = _connect()
-    if client is None:
+    client, lib = _connect(), _load()
+    if client is None or lib is None:
         return []
-    return _names(_lib.jack_get_ports(client, pattern.encode() if pattern else None, kind, flags))
+    return _names(lib, lib.jack_get_ports(client, pattern.encode() if pattern else None, kind, flags))
 
 
 def connections(name: str) -> list[str] | None:
     """Full names of the ports connected to the port ``name``; None when there is no such port
     (or no server). A port that went away and came back under the same name has lost them."""
-    client = _connect()
-    if client is None:
+    client, lib = _connect(), _load()
+    if client is None or lib is None:
         return None
-    port = _lib.jack_port_by_name(client, name.encode())
+    port = lib.jack_port_by_name(client, name.encode())
     if not port:
         return None
-    return _names(_lib.jack_port_get_all_connections(client, port))
+    return _names(lib, lib.jack_port_get_all_connections(client, port))
 
 
 def connect(source: str, destination: str) -> bool:
     """Connect two ports by full name; True when they are connected (now or already)."""
-    client = _connect()
-    if client is None:
+    client, lib = _connect(), _load()
+    if client is None or lib is None:
         return False
-    _lib.jack_connect(client, source.encode(), destination.encode())  # EEXIST when already connected
+    lib.jack_connect(client, source.encode(), destination.encode())  # EEXIST when already connected
     return source in (connections(destination) or [])
 
 
-def _names(arr) -> list[str]:
+def _names(lib: ctypes.CDLL, arr: ctypes._Pointer[ctypes.c_char_p]) -> list[str]:
+    """The strings of a NULL-terminated array that libjack allocated (a NULL pointer: none); frees it."""
     if not arr:
         return []
     names = []
@@ -111,7 +113,7 @@ def _names(arr) -> list[str]:
     while arr[i]:
         names.append(arr[i].decode("utf-8", "replace"))
         i += 1
-    _lib.jack_free(arr)
+    lib.jack_free(arr)
     return names
 
 

@@ -16,7 +16,7 @@ from __future__ import annotations
 
 import types
 import typing
-from dataclasses import dataclass, fields
+from dataclasses import dataclass, fields, is_dataclass
 from typing import Any
 
 from rtvoice.engine import Error, Learned, Settings, Values
@@ -170,12 +170,14 @@ def well_formed(obj: object, *, command: bool = False) -> bool:
     """True when ``obj`` is one of the protocol's records (a command when ``command``, else a
     message) and every field holds its declared type."""
     kinds = _COMMANDS if command else _MESSAGES
-    if type(obj) not in kinds:
+    kind = type(obj)
+    # Every record is a dataclass; is_dataclass only tells the type checker so.
+    if kind not in kinds or not is_dataclass(kind):
         return False
-    hints = _HINTS.get(type(obj))
+    hints = _HINTS.get(kind)
     if hints is None:
-        declared = typing.get_type_hints(type(obj))
-        hints = _HINTS[type(obj)] = [(f.name, declared[f.name]) for f in fields(type(obj))]
+        declared = typing.get_type_hints(kind)
+        hints = _HINTS[kind] = [(f.name, declared[f.name]) for f in fields(kind)]
     return all(_fits(getattr(obj, name, None), hint) for name, hint in hints)
 
 

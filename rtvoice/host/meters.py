@@ -7,6 +7,7 @@ main thread reads them at its own pace and publishes to the shared board.
 from __future__ import annotations
 
 import math
+from typing import TypedDict
 
 import numpy as np
 
@@ -63,12 +64,25 @@ class CallbackMeter:
         return (float(np.searchsorted(np.cumsum(self._hist), q * total)) + 0.5) / 1000
 
 
+class StagedVoice(TypedDict):
+    """One half of :class:`VoiceStage`: |g s| in output units and frequency in Hz of the loudest
+    voice's first ``n`` modes, its note and velocity, and how many voices sound."""
+
+    levels: np.ndarray
+    freqs: np.ndarray
+    n: int
+    note: int
+    velocity: int
+    voices: int
+
+
 class VoiceStage:
     """The loudest voice's mode levels and frequencies, double-buffered for the main thread."""
 
     def __init__(self) -> None:
-        self._halves = [{"levels": np.zeros(MAX_MODES), "freqs": np.zeros(MAX_MODES), "n": 0, "note": -1,
-                         "velocity": 0, "voices": 0} for _ in range(2)]
+        self._halves: list[StagedVoice] = [
+            {"levels": np.zeros(MAX_MODES), "freqs": np.zeros(MAX_MODES), "n": 0, "note": -1, "velocity": 0,
+             "voices": 0} for _ in range(2)]
         self._ready = 0
         self._work = np.zeros(MAX_MODES, complex)  # scratch for the engine's read-out
         self._readout = VoiceReadout()
@@ -81,7 +95,7 @@ class VoiceStage:
         half["n"], half["note"], half["velocity"], half["voices"] = r.modes, r.note, r.velocity, r.voices
         self._ready = 1 - self._ready
 
-    def current(self) -> dict:
+    def current(self) -> StagedVoice:
         return self._halves[self._ready]
 
 
@@ -94,7 +108,7 @@ class Publisher:
         self._window = np.hanning(SPECTRUM_FRAMES)
         self._norm = 2.0 / self._window.sum()  # a full-scale sine reads 0 dB
 
-    def publish(self, fields: dict, stage: dict, n_modes: int) -> None:
+    def publish(self, fields: dict, stage: StagedVoice, n_modes: int) -> None:
         n = stage["n"]
         levels = np.full(MAX_MODES, SILENT_DB)
         if n:

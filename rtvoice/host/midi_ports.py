@@ -26,6 +26,8 @@ import re
 import sys
 import time
 from dataclasses import dataclass, field
+from types import ModuleType
+from typing import Protocol
 
 from rtvoice.engine import channel_messages
 from rtvoice.host import jackinfo
@@ -36,7 +38,7 @@ CLOSE_DELAY_S = 0.5
 VIRTUAL_PORT = "in"
 
 
-def load_rtmidi():
+def load_rtmidi() -> ModuleType | None:
     """The rtmidi module, or None when python-rtmidi cannot load."""
     try:
         import rtmidi
@@ -45,7 +47,7 @@ def load_rtmidi():
     return rtmidi
 
 
-def choose_api(rtmidi) -> int:
+def choose_api(rtmidi: ModuleType) -> int:
     """The MIDI API that fits this machine: JACK when its server runs, else the platform's own."""
     compiled = rtmidi.get_compiled_api()
     if rtmidi.API_UNIX_JACK in compiled and jackinfo.server_running():
@@ -57,17 +59,46 @@ def choose_api(rtmidi) -> int:
     return compiled[0] if compiled else rtmidi.API_UNSPECIFIED
 
 
-def api_name(rtmidi, api: int) -> str:
+def api_name(rtmidi: ModuleType, api: int) -> str:
     try:
         return rtmidi.get_api_display_name(api)
     except Exception:  # noqa: BLE001 - older python-rtmidi
         return str(api)
 
 
+# python-rtmidi ships no type information: these say what the host uses of its ports.
+class RtmidiPort(Protocol):
+    """An rtmidi.MidiIn or rtmidi.MidiOut."""
+
+    def open_port(self, port: int = 0, name: str | None = None) -> object: ...
+
+    def open_virtual_port(self, name: str | None = None) -> object: ...
+
+    def get_ports(self) -> list[str]: ...
+
+    def close_port(self) -> None: ...
+
+    def delete(self) -> None: ...
+
+
+class RtmidiIn(RtmidiPort, Protocol):
+    """An rtmidi.MidiIn: ``get_message()`` gives (message bytes, seconds since the previous one) or None."""
+
+    def ignore_types(self, sysex: bool = True, timing: bool = True, active_sense: bool = True) -> None: ...
+
+    def get_message(self) -> tuple[list[int], float] | None: ...
+
+
+class RtmidiOut(RtmidiPort, Protocol):
+    """An rtmidi.MidiOut."""
+
+    def send_message(self, message: list[int]) -> None: ...
+
+
 @dataclass
 class MidiPort:
     name: str
-    midiin: object
+    midiin: RtmidiIn
     virtual: bool = False
     clock: PortClock = field(default_factory=PortClock)
     own_client: str = ""  # the rtmidi client reading it (on JACK: its port is connected to the source)
@@ -79,14 +110,14 @@ class MidiInputs:
     def __init__(self, mode: str, client_name: str = "rtvoice"):
         self.mode = mode
         self.client_name = client_name
-        self.rtmidi = None
-        self.api = None
+        self.rtmidi: ModuleType | None = None  # set by open() (or by its user, as ``rtvoice devices`` does)
+        self.api: int | None = None  # the rtmidi API, with ``rtmidi``
         self.inputs: tuple[MidiPort, ...] = ()
         self.events = 0
         self._closing: list[tuple[float, MidiPort]] = []
         self._count = 0
-        self._lister = None
-        self._eox = None  # on JACK: our MIDI output that ends a broken-off sysex on our inputs
+        self._lister: RtmidiIn | None = None
+        self._eox: RtmidiOut | None = None  # on JACK: our MIDI output that ends a broken-off sysex on our inputs
         self._eox_port = ""
 
     @property
@@ -118,8 +149,14 @@ class MidiInputs:
             notes += self.scan()
         return notes
 
-    def _new_in(self, name: str):
-        mi = self.rtmidi.MidiIn(self.api, name=name, queue_size_limit=QUEUE_SIZE)
+    def _loaded(self) -> ModuleType:
+        """The rtmidi module; an error when nothing loaded it (a call before ``open``)."""
+        if self.rtmidi is None:
+            raise RuntimeError("MidiInputs: python-rtmidi is not loaded (call open() first, or set .rtmidi and .api)")
+        return self.rtmidi
+
+    def _new_in(self, name: str) -> RtmidiIn:
+        mi: RtmidiIn = self._loaded().MidiIn(self.api, name=name, queue_size_limit=QUEUE_SIZE)
         mi.ignore_types(sysex=True, timing=True, active_sense=True)
         return mi
 
@@ -137,7 +174,7 @@ class MidiInputs:
         own = (f"{self.client_name}-",)
         names = [n for n in names if not n.startswith(own)]
         if self.mode == "all":
-            if self.api == self.rtmidi.API_UNIX_JACK:
+            if self.api == self._loaded().API_UNIX_JACK:
                 physical = set(jackinfo.ports(jackinfo.MIDI_TYPE, jackinfo.PORT_IS_OUTPUT | jackinfo.PORT_IS_PHYSICAL))
                 return [n for n in names if n in physical]
             return [n for n in names if "through" not in n.lower()]
@@ -180,7 +217,7 @@ class MidiInputs:
     # -- ending a broken-off sysex (JACK) ------------------------------------------------
     def _open_eox(self) -> None:
         try:
-            out = self.rtmidi.MidiOut(self.api, name=f"{self.client_name}-eox")
+            out: RtmidiOut = self._loaded().MidiOut(self.api, name=f"{self.client_name}-eox")
             out.open_virtual_port("out")
         except Exception:  # noqa: BLE001 - without it a broken sysex can still deafen an input
             return
@@ -263,7 +300,7 @@ class MidiInputs:
             self._eox = None
 
 
-def _close(midiin) -> None:
+def _close(midiin: RtmidiPort) -> None:
     try:
         midiin.close_port()
         midiin.delete()

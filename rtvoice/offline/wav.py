@@ -10,6 +10,7 @@ import os
 import struct
 import tempfile
 from pathlib import Path
+from typing import BinaryIO
 
 import numpy as np
 
@@ -59,7 +60,9 @@ class WavStreamWriter:
         self.channels = channels
         self.rate = int(sample_rate_hz)
         self.frames = 0
-        self._fh = open(self.path, "wb")  # noqa: SIM115 - closed by close()
+        # BinaryIO, not the BufferedWriter open() gives: the host's recorder hands in a file
+        # opened "r+b" to append to a take (rtvoice.host.recorder.reopen_for_append).
+        self._fh: BinaryIO = open(self.path, "wb")  # noqa: SIM115 - closed by close()
         self._fh.write(_header(0, channels, self.rate))
         self._fh.flush()
 

@@ -17,7 +17,7 @@ from rtvoice.ui.prediction import FLOOR_DB, electronics_gain, to_db
 Report = Callable[[str], None]
 
 #: The host publishes each mode's level |g s| after the output gain but before the
-#: electronics filter (rtvoice/host/engine_process.py); the bars show live and predicted
+#: electronics filter (rtvoice/host/meters.py); the bars show live and predicted
 #: levels both after the electronics, as they reach the output.
 
 
