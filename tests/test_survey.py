@@ -425,11 +425,15 @@ def test_plot_without_matplotlib_is_a_one_line_error(tmp_path):
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
 
 
+#: The distribution's name in pyproject.toml (the import package is rtvoice).
+DISTRIBUTION = "rtvoice-modal-string"
+
+
 def test_plain_install_draws_a_png_without_a_display(tmp_path):
     # matplotlib comes with rtvoice itself, not through an extra: a plain install (scripts/run) has it.
     from importlib.metadata import requires
 
-    plain = [r for r in requires("rtvoice") or [] if "extra ==" not in r]
+    plain = [r for r in requires(DISTRIBUTION) or [] if "extra ==" not in r]
     assert any(r.replace(" ", "").startswith("matplotlib") for r in plain), plain
     # No display, and a user's MPLBACKEND naming a screen backend: the picture is still drawn to the file.
     env = {k: v for k, v in os.environ.items() if k not in ("DISPLAY", "WAYLAND_DISPLAY")}
