@@ -189,7 +189,7 @@ def test_a_utf8_byte_order_mark_is_accepted(tmp_path):
     assert presets.read_preset_file(path).get("string.modes") == 33
 
 
-NEWER = """format = 2
+NEWER = """format = 3
 name = "from-the-future"
 voices = 7
 future_mode = "sparkle"
@@ -238,7 +238,7 @@ def test_saving_over_a_newer_preset_is_refused_so_its_extra_keys_survive(user_ho
         presets.save_preset(s, "future")
     assert (folder / "future.toml").read_text() == NEWER
     presets.save_preset(s, "future-copy")  # under another name it saves, in this version's format
-    assert tomllib.loads((folder / "future-copy.toml").read_text())["format"] == 1
+    assert tomllib.loads((folder / "future-copy.toml").read_text())["format"] == 2
 
 
 def test_newer_preset_warning_is_one_line_on_the_command_line(tmp_path, capsys):

@@ -158,6 +158,14 @@ def test_missing_at_the_default_threshold_for_low_harmonics():
     assert [k for k in plane.missing_harmonics(0, 0) if k <= 7] == [3, 4, 6]
 
 
+def open_sound(preset: str | None) -> Settings:
+    """A preset's (or the default) sound with each note an open string of its own: these checks are of
+    the open-string model, which places pickups anywhere on a note's own length. A fretted instrument
+    keeps pickups and pluck short of its last fret; its maps are checked in test_survey_neck.py."""
+    settings = load_preset(preset) if preset else Settings.defaults()
+    return settings.with_values({"instrument.assign": "open"})
+
+
 # -- outside facts: brightness and placement --------------------------------------------
 
 
@@ -165,7 +173,7 @@ def test_missing_at_the_default_threshold_for_low_harmonics():
 def test_centroid_rises_as_the_pickup_moves_toward_the_bridge(preset):
     # A pickup nearer the bridge sounds brighter (common practice among players and builders).
     # Pickup distances halve step by step; plucks anywhere from 0.1 to 0.45 of the length.
-    settings = load_preset(preset) if preset else Settings.defaults()
+    settings = open_sound(preset)
     pickups = [0.48, 0.24, 0.12, 0.06, 0.03]
     result = survey(settings, [40, 52, 64], pickups, np.linspace(0.1, 0.45, 15), sensings=["velocity", "displacement"])
     steps_hz = np.diff(result.centroid_hz, axis=-1)
@@ -230,7 +238,7 @@ PRESETS = [None, "felt-hammer", "dark-coil", "split-phase", "glass-bridge"]
 def test_analytic_centroid_and_level_match_rendered_audio(preset, note):
     # The engine renders the note through the offline renderer; the centroid comes from numpy's
     # FFT of the audio and the level from its summed squares, with no use of the survey's model.
-    settings = load_preset(preset) if preset else Settings.defaults()
+    settings = open_sound(preset)
     own = settings.pickups[0]
     moved = 0.35 if own["position"] < 0.2 else 0.08
     result = survey(settings, [note], [own["position"], moved], window_s=1.0)
@@ -265,7 +273,7 @@ def test_mode_fit_agrees_with_an_independent_least_squares_fit():
 @pytest.mark.parametrize("preset", PRESETS)
 def test_verify_rendered_points_stay_within_tolerance(preset):
     # Issue 6: analytic and measured descriptors within 0.5 dB and 1 % in centroid.
-    settings = load_preset(preset) if preset else Settings.defaults()
+    settings = open_sound(preset)
     result = survey(
         settings,
         [40, 57],

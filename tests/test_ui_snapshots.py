@@ -18,6 +18,7 @@ from rtvoice.engine.renderer import Engine
 from rtvoice.engine.settings import Settings
 from rtvoice.host.link import Snapshot
 from rtvoice.ui.app import RtvoiceApp
+from rtvoice.ui.session import SoundSession
 
 pytestmark = pytest.mark.usefixtures("home")  # a user folder of its own for every test (conftest.py)
 
@@ -54,8 +55,9 @@ class FixedPicture:
         return getattr(self._link, name)
 
 
-def make_app(link) -> RtvoiceApp:
-    return RtvoiceApp(FixedPicture(fresh(link), fixed_snapshot()), safety_note=False)
+def make_app(link, settings: Settings | None = None) -> RtvoiceApp:
+    session = None if settings is None else SoundSession(settings)
+    return RtvoiceApp(FixedPicture(fresh(link), fixed_snapshot()), session, safety_note=False)
 
 
 def typed(*keys: str):
@@ -76,6 +78,14 @@ def typed(*keys: str):
 @pytest.mark.parametrize("size", [(80, 24), (120, 40)])
 def test_main_screen(snap_compare, link, size):
     assert snap_compare(make_app(link), terminal_size=size)
+
+
+@pytest.mark.parametrize("size", [(80, 24), (120, 40)])
+def test_main_screen_of_a_fretted_instrument(snap_compare, link, size):
+    """The neck in place of the one string: a six-string played by the hand rule, a slanted pickup
+    (nothing sounds on the engine's strings, so the neck shows none)."""
+    fretted = Settings.defaults().with_values({"instrument.assign": "hand", "pickup.0.slant": -0.02})
+    assert snap_compare(make_app(link, fretted), terminal_size=size)
 
 
 @pytest.mark.parametrize("size", [(80, 24), (120, 40)])

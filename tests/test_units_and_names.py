@@ -123,7 +123,8 @@ def test_a_preset_with_lengths_loads_and_saves_as_fractions():
     assert s.get("pickup.0.width") == pytest.approx(0.6 * MM_PER_INCH / scale_mm)
     assert s.get("excitation.position") == pytest.approx(40 / scale_mm)
     again = preset_from_bytes(preset_text(s).encode(), "again.toml")
-    assert again.differences(s) == [] and '"40mm"' not in preset_text(s)
+    # Positions are saved in mm (preset format 2): what was typed as 40 mm is written as 40 mm.
+    assert again.differences(s) == [] and 'position = "40mm"' in preset_text(s)
 
 
 @pytest.mark.parametrize(("text", "needle"), [

@@ -10,6 +10,7 @@ from pathlib import Path
 
 from rtvoice.commands.render import add_sound_options, settings_from_args
 from rtvoice.engine import resonance_of
+from rtvoice.errors import NO_VALUE
 from rtvoice.offline.options import output_path
 from rtvoice.offline.render import text_progress
 from rtvoice.survey.descriptors import DEFAULT_MISSING_BELOW_DB
@@ -22,6 +23,8 @@ from rtvoice.survey.grid import (
 )
 from rtvoice.survey.inputs import SurveyError, parse_grid, parse_notes, parse_placement
 from rtvoice.survey.model import SENSINGS
+from rtvoice.survey.neck import DEFAULT_HARMONICS, DEFAULT_LOST_BY_DB
+from rtvoice.survey.placing import check_placement, fretted_settings, is_fretted, place_at
 
 PROGRESS_ABOVE_POINTS = 50_000
 COMPARE_ROWS = 24
@@ -35,22 +38,21 @@ def register(sub: argparse._SubParsersAction) -> None:
         "the "
         "engine's string modes. Positions are fractions of the length from the bridge, or "
         "lengths with a unit, mm, cm or in (40:160:2mm, 2:12:0.5cm, 1.5in). Notes are MIDI numbers or "
-        "names (E2, F#3, Bb1).",
+        "names (E2, F#3, Bb1). With --neck: one placement (the preset's, changed by --set) across "
+        "every string and fret of the instrument.",
     )
     p.add_argument(
         "--note",
         action="append",
         type=_notes,
-        required=True,
         metavar="NOTE|A:B",
         help="MIDI note number or name (E2, F#3, Bb1; 60 = C4), or an inclusive range A:B[:STEP] "
-        "such as E2:E3 (repeatable)",
+        "such as E2:E3 (repeatable; needed unless --string and --fret, or --neck)",
     )
     p.add_argument(
         "--pickup",
-        required=True,
         metavar="GRID",
-        help="pickup positions START:STOP:STEP or one value (fraction or mm)",
+        help="pickup positions START:STOP:STEP or one value (fraction or mm; needed unless --neck)",
     )
     p.add_argument("--pluck", metavar="GRID", help="pluck positions (default: the preset's)")
     p.add_argument("--width", metavar="GRID", help="pickup widths (default: the preset's)")
@@ -117,6 +119,25 @@ def register(sub: argparse._SubParsersAction) -> None:
         default=os.cpu_count() or 1,
         help="worker processes for --verify (default: one per core)",
     )
+    p.add_argument("--string", type=_count(1, 12, "string"), metavar="S",
+                   help="survey the grid for the note at string S (1 = the highest) and --fret F, positions "
+                        "fixed on the body")
+    p.add_argument("--fret", type=_count(0, 36, "fret"), metavar="F", help="the fret of --string (0 = open)")
+    p.add_argument("--neck", action="store_true",
+                   help="map the placement the preset and --set give across the neck: every string x fret")
+    p.add_argument("--strings", type=_number_list("strings", 1), metavar="LIST",
+                   help="strings --neck maps: 1,2,6, ranges 1:3, or all (default)")
+    p.add_argument("--frets", type=_number_list("frets", 0), metavar="LIST",
+                   help="frets --neck maps: 0:12, 0,5,12, or all (default)")
+    p.add_argument("--against", action="append", nargs="+", type=_assignment, metavar="KEY=VALUE",
+                   help="with --neck: a second placement, the same settings with these changes "
+                        "(pickup.0.position=120mm); the CSV gains its values, the differences and lost harmonics")
+    p.add_argument("--harmonics", type=_count(1, 512, "harmonics"), metavar="N",
+                   help=f"with --against: how many of the lowest harmonics the lost and gained lists look at "
+                        f"(default {DEFAULT_HARMONICS})")
+    p.add_argument("--lost-by", type=_decibels, metavar="DB",
+                   help=f"with --against: a harmonic this much weaker than at the other placement is lost "
+                        f"(default {DEFAULT_LOST_BY_DB:g})")
     add_sound_options(p)
     p.set_defaults(func=run_survey)
 
@@ -133,8 +154,29 @@ def run_survey(args: argparse.Namespace) -> int:
             raise SurveyError(option, str(path), "no such folder for the output file")
     if args.compare_plot and not args.compare:
         raise SurveyError("--compare-plot", args.compare_plot, "needs --compare A B")
+    if args.neck:
+        from rtvoice.commands.survey_neck import run_neck
+
+        return run_neck(args, settings)
+    _only_with(args, "--neck", NECK_ONLY)
+    _only_with(args, "--neck and --against", AGAINST_ONLY)
+    places = None
+    if args.string is not None or args.fret is not None:
+        if args.string is None or args.fret is None:
+            missing = "--fret" if args.fret is None else "--string"
+            raise SurveyError(missing, NO_VALUE, "--string S and --fret F name one note together: give both")
+        if args.note:
+            raise SurveyError("--note", NO_VALUE, "--string and --fret name the note: leave --note out")
+        settings = fretted_settings(settings, "--string")
+        places = [place_at(settings, args.string, args.fret)]
+        notes = [places[0].note]
+    elif not args.note:
+        raise SurveyError("--note", NO_VALUE, "give the note(s) to survey, or --string S --fret F, or --neck")
+    else:
+        notes = list(dict.fromkeys(n for group in args.note for n in group))
+    if args.pickup is None:
+        raise SurveyError("--pickup", NO_VALUE, "give the pickup positions to survey (a grid or one value), or --neck")
     scale = settings.get("string.scale_length_mm")
-    notes = list(dict.fromkeys(n for group in args.note for n in group))
     pickups = parse_grid(args.pickup, "pickup", scale)
     plucks = parse_grid(args.pluck, "pluck", scale) if args.pluck else None
     widths = parse_grid(args.width, "width", scale) if args.width else None
@@ -142,6 +184,11 @@ def run_survey(args: argparse.Namespace) -> int:
     reference = parse_placement(args.reference, own, scale, "--reference") if args.reference else None
     sensings = list(dict.fromkeys(args.sensing)) if args.sensing else None
     compare = [parse_placement(c, reference or own, scale, "--compare") for c in args.compare or ()]
+    if is_fretted(settings):  # the comparison runs after the CSV is written: check its placements now
+        key = f"pickup.{args.pickup_index}"
+        for c in compare:
+            check_placement(settings, {f"{key}.position": c.pickup, "excitation.position": c.pluck,
+                                       f"{key}.width": c.width}, "--compare", str(c))
     if args.plot or args.compare_plot:  # fail before the work, not after it
         from rtvoice.survey.plot import check_map, pyplot
 
@@ -173,14 +220,19 @@ def run_survey(args: argparse.Namespace) -> int:
         reference=reference,
         missing_below_db=args.missing_below,
         progress=text_progress("surveying") if tty and n_points > PROGRESS_ABOVE_POINTS else None,
+        places=places,
+        past_last_fret=False,  # only placements the settings take, as the engine would play them
     )
     from rtvoice.survey.csvout import write_csv
 
     write_csv(out, result)
     f_r, q = resonance_of(settings)
     electronics = f"resonance {f_r:.0f} Hz, Q {q:.3g}" if f_r > 0 else "bypassed"
+    where = ""
+    if places:
+        where = f" at string {places[0].string}, fret {places[0].fret}"
     print(
-        f"wrote {out} ({result.size} points, {len(notes)} note(s); electronics {electronics}) "
+        f"wrote {out} ({result.size} points, {len(notes)} note(s){where}; electronics {electronics}) "
         f"in {time.perf_counter() - started:.2f} s"
     )
     if args.plot:
@@ -205,6 +257,7 @@ def _compare(args, settings, result, placements) -> None:
         pickup_index=args.pickup_index,
         window_s=args.window,
         sample_rate_hz=args.rate,
+        place=result.place(0),
     )
     from rtvoice.survey.plot import comparison_levels, placement_label
 
@@ -255,6 +308,47 @@ def _verify(args, result, tty: bool) -> int:
         f"{100 * CENTROID_TOLERANCE:g} %"
     )
     return 0 if ok else 1
+
+
+#: Options that only a neck map takes, and those only its comparison takes (dest, option).
+NECK_ONLY = (("strings", "--strings"), ("frets", "--frets"), ("against", "--against"))
+AGAINST_ONLY = (("harmonics", "--harmonics"), ("lost_by", "--lost-by"))
+
+
+def _only_with(args: argparse.Namespace, needed: str, options: tuple[tuple[str, str], ...]) -> None:
+    for dest, option in options:
+        if getattr(args, dest) is not None:
+            raise SurveyError(option, NO_VALUE, f"goes with {needed}")
+
+
+def _number_list(what: str, low: int):
+    """Parse ``all`` or whole numbers and inclusive ranges A:B, comma-separated (None: all)."""
+
+    def parse(text: str) -> list[int] | None:
+        if text.strip().lower() == "all":
+            return None
+        out: list[int] = []
+        for part in text.split(","):
+            ends = part.split(":")
+            try:
+                first, last = int(ends[0]), int(ends[-1])
+            except ValueError:
+                raise argparse.ArgumentTypeError(
+                    f"{what} are whole numbers, ranges A:B or all (1,2,6 or 0:12), got {text!r}") from None
+            if len(ends) > 2 or last < first or first < low or last > 36:
+                raise argparse.ArgumentTypeError(f"{what}: {part!r} is not a number or a range A:B within "
+                                                 f"{low} .. 36")
+            out.extend(range(first, last + 1))
+        return out
+
+    return parse
+
+
+def _assignment(text: str) -> str:
+    key, sep, _ = text.partition("=")
+    if not sep or not key.strip():
+        raise argparse.ArgumentTypeError(f"expected KEY=VALUE (pickup.0.position=120mm), got {text!r}")
+    return text
 
 
 def _notes(text: str) -> list[int]:

@@ -10,11 +10,14 @@ from __future__ import annotations
 
 from rtvoice.engine.controls import ControlMap, check_entries, default_entries
 from rtvoice.engine.events import Error, Learned, Values
+from rtvoice.engine.instrument import AssignRule, Instrument, Placement, fretted_place, string_and_fret
 from rtvoice.engine.midi import NOTE_ON, channel_messages
 from rtvoice.engine.notes import NoteModel, initial_amplitudes, note_model, resonance_of, velocity_gain
 from rtvoice.engine.output import CEILING, CEILING_DBFS, Limiter, dc_blocker, electronics_filter
+from rtvoice.engine.placed_notes import PlacedNote, note_model_at, placed_note
 from rtvoice.engine.presets import (
     PresetError,
+    PresetFormatNotice,
     PresetInfo,
     PresetWarning,
     list_presets,
@@ -24,6 +27,7 @@ from rtvoice.engine.presets import (
     write_atomic,
 )
 from rtvoice.engine.readouts import (
+    SoundingPlace,
     VoiceReadout,
     active_voices,
     held_voice,
@@ -31,11 +35,22 @@ from rtvoice.engine.readouts import (
     modes_per_voice,
     pool_token,
     sounding_partials,
+    sounding_places,
+    sounding_places_into,
+    take_placements,
     voice_amplitudes,
 )
 from rtvoice.engine.renderer import OUTPUT_SCALE, Engine, EngineStats, Event
 from rtvoice.engine.schema import MAX_PICKUPS, PARAMS, PICKUP_FIELDS, Param, lookup
 from rtvoice.engine.settings import PRESET_FORMAT, Settings, SettingsError, apply_assignments
+from rtvoice.engine.stringing import (  # the instrument's strings (issue 17)
+    MAX_STRINGS,
+    STRING_FIELDS,
+    StringEntry,
+    inharmonicity_of,
+    string_physics_of,
+    t60s_of,
+)
 from rtvoice.engine.units import MM_PER_UNIT, NOTE_NAMES, allowed_text, in_unit, note_name, parse_note, split_unit
 from rtvoice.engine.voices import block_split
 
@@ -50,20 +65,25 @@ __all__ = [
     "PARAMS",
     "PICKUP_FIELDS",
     "PRESET_FORMAT",
+    "AssignRule",
     "ControlMap",
     "Engine",
     "EngineStats",
     "Error",
     "Event",
+    "Instrument",
     "Learned",
     "Limiter",
     "NoteModel",
     "Param",
+    "PlacedNote",
+    "Placement",
     "PresetError",
     "PresetInfo",
     "PresetWarning",
     "Settings",
     "SettingsError",
+    "SoundingPlace",
     "Values",
     "VoiceReadout",
     "active_voices",
@@ -75,6 +95,7 @@ __all__ = [
     "dc_blocker",
     "default_entries",
     "electronics_filter",
+    "fretted_place",
     "held_voice",
     "in_unit",
     "initial_amplitudes",
@@ -84,15 +105,29 @@ __all__ = [
     "loudest_voice_into",
     "modes_per_voice",
     "note_model",
+    "note_model_at",
     "note_name",
     "parse_note",
+    "placed_note",
     "pool_token",
     "preset_text",
     "read_preset_file",
     "resonance_of",
     "sounding_partials",
+    "sounding_places",
+    "sounding_places_into",
+    "string_and_fret",
+    "take_placements",
     "split_unit",
     "velocity_gain",
     "voice_amplitudes",
     "write_atomic",
+    # the instrument's strings and the preset format's notice (issue 17)
+    "MAX_STRINGS",
+    "STRING_FIELDS",
+    "PresetFormatNotice",
+    "StringEntry",
+    "inharmonicity_of",
+    "string_physics_of",
+    "t60s_of",
 ]

@@ -11,8 +11,6 @@ from __future__ import annotations
 from dataclasses import dataclass
 from enum import Enum
 
-import numpy as np
-
 
 class ChangeKind(Enum):
     """What a change does to its voice."""
@@ -23,18 +21,29 @@ class ChangeKind(Enum):
 
 
 @dataclass(frozen=True, slots=True)
+class Excitation:
+    """A note's own pluck, set by a per-note control (MPE): ``position`` and ``width`` as fractions of
+    the open scale length (of the note's own length under the open rule), as the settings hold them."""
+
+    position: float
+    width: float
+
+
+@dataclass(frozen=True, slots=True)
 class NoteStart:
     """The note a START sets its voice up for.
 
-    ``initial`` holds the note's own initial mode amplitudes at full velocity when a
-    per-note control (MPE) set its excitation, else None (the sound's). ``fresh`` is
-    True when the voice's slot was free: it starts from silence, with nothing to fade out.
+    ``place`` is where it sounds (its MIDI note under the open rule, else its string and fret:
+    :mod:`rtvoice.engine.instrument`). ``excitation`` is the note's own pluck when a per-note
+    control (MPE) set one, else None (the sound's). ``fresh`` is True when the voice's slot was
+    free: it starts from silence, with nothing to fade out.
     """
 
     channel: int  # MIDI channel 0-15
     note: int  # MIDI note number 0-127
     velocity: int  # 1-127
-    initial: np.ndarray | None
+    place: int
+    excitation: Excitation | None
     fresh: bool
 
 
@@ -49,4 +58,4 @@ class VoiceChange:
     start: NoteStart | None = None
 
 
-__all__ = ["ChangeKind", "NoteStart", "VoiceChange"]
+__all__ = ["ChangeKind", "Excitation", "NoteStart", "VoiceChange"]

@@ -1,16 +1,15 @@
-"""Controllers to parameters inside the engine: MIDI control changes, channel pressure and MPE
-per-note values, through the sound's controller map (:class:`~rtvoice.engine.controls.ControlMap`).
+"""Controllers to parameters inside the engine: MIDI control changes, channel pressure and MPE per-note
+values, through the sound's controller map (:class:`~rtvoice.engine.controls.ControlMap`).
 
-The engine owns one router, so a controller map acts the same wherever the engine runs:
-live in the host, offline in ``rtvoice render``, in the soak and the survey's checks.
-The engine hands it every controller it does not own itself (sustain, RPN, all-notes-off
-stay the engine's) in event order. Changes are collected and applied at most every
-``every_s`` seconds of the engine's own sample clock, after a block, as one new Settings:
-live parameters (pickups, gain, electronics) then glide on the ringing notes through the
-engine's own smoothing, so a controller sweep does not zipper; the others act on the next
-note. Per-note MPE values set the excitation of each note as it starts (cached, as 7-bit
-controllers repeat values). What a host must hear of (a learned mapping, a refused change,
-the values that moved) goes into ``outbox`` as small frozen records (:mod:`rtvoice.engine.events`).
+The engine owns one router, so a controller map acts the same wherever the engine runs: live in the
+host, offline in ``rtvoice render``, in the soak and the survey's checks. The engine hands it every
+controller it does not own itself (sustain, RPN, all-notes-off stay the engine's) in event order.
+Changes are collected and applied at most every ``every_s`` seconds of the engine's own sample
+clock, after a block, as one new Settings: live parameters (pickups, gain, electronics) then glide
+on the ringing notes through the engine's own smoothing, so a controller sweep does not zipper; the
+others act on the next note. Per-note MPE values set the excitation of each note as it starts. What
+a host must hear of (a learned mapping, a refused change, the values that moved) goes into
+``outbox`` as small frozen records (:mod:`rtvoice.engine.events`).
 """
 
 from __future__ import annotations
@@ -18,8 +17,7 @@ from __future__ import annotations
 from collections import deque
 from typing import Any, Protocol
 
-import numpy as np
-
+from rtvoice.engine.changes import Excitation
 from rtvoice.engine.controls import ControlMap
 from rtvoice.engine.events import EngineEvent, Error, Learned, Values
 from rtvoice.engine.midi import ChannelState
@@ -35,12 +33,9 @@ class Engine(Protocol):
     @property
     def channels(self) -> ChannelState: ...
 
-    def excitation_initial(self, position: float, width: float) -> np.ndarray: ...
-
     def apply_settings(self, settings: Settings) -> None: ...
 
 APPLY_EVERY_S = 0.004
-EXCITATION_CACHE = 512
 
 
 class ControlRouter:
@@ -52,8 +47,6 @@ class ControlRouter:
         self.every_s = every_s
         self.pending: dict[str, Any] = {}
         self._last = -1e9
-        self._cache: dict[tuple[float, float], np.ndarray] = {}
-        self._cache_settings: object = None
         self._reported: set[str] = set()
 
     def _member(self, channel: int) -> bool:
@@ -71,26 +64,16 @@ class ControlRouter:
         for name, v in self.controls.pressure(channel, value01, self._member(channel)):
             self.pending[name] = v
 
-    def note_excitation(self, channel: int) -> np.ndarray | None:
-        """Initial mode amplitudes for a note starting on ``channel`` from its MPE values, or None."""
+    def note_excitation(self, channel: int) -> Excitation | None:
+        """The pluck of a note starting on ``channel`` from its MPE per-note values, or None (the sound's)."""
         if not self._member(channel):
             return None
         values = self.controls.note_values(channel)
         if not values:
             return None
-        engine = self.engine
-        s = engine.settings
-        if s is not self._cache_settings:
-            self._cache_settings = s
-            self._cache.clear()
-        key = (values.get("excitation.position", s.get("excitation.position")),
-               values.get("excitation.width", s.get("excitation.width")))
-        initial = self._cache.get(key)
-        if initial is None:
-            if len(self._cache) >= EXCITATION_CACHE:
-                self._cache.clear()
-            initial = self._cache[key] = engine.excitation_initial(*key)
-        return initial
+        s = self.engine.settings
+        return Excitation(float(values.get("excitation.position", s.get("excitation.position"))),
+                          float(values.get("excitation.width", s.get("excitation.width"))))
 
     def after_block(self, now_s: float) -> None:
         """Apply the collected changes when ``every_s`` has passed since the last time (``now_s``:

@@ -109,6 +109,9 @@ def _check_one(i: int, raw: Mapping[str, Any], source: str) -> dict[str, Any]:
         raise _error(f"{where}.target", target, "a breakpoint shape cannot follow a controller", source)
     if param.structural:
         raise _error(f"{where}.target", target, "changes the voice pool; set it in the sound instead", source)
+    if target.startswith("strings."):
+        raise _error(f"{where}.target", target, "a string's build cannot follow a controller; set it in the sound "
+                     "instead", source)
     src = raw.get("source", "cc")
     if src not in SOURCES:
         raise _error(f"{where}.source", src, f"expected one of {', '.join(SOURCES)}", source)

@@ -30,13 +30,15 @@ def harmonic_stretch(inharmonicity: float, n_modes: int) -> np.ndarray:
 
 
 def initial_amplitudes(settings: Settings, n_modes: int, position: float | None = None,
-                       width: float | None = None) -> np.ndarray:
+                       width: float | None = None, inharmonicity: float | None = None) -> np.ndarray:
     """Complex amplitude of each mode at a full-velocity note-on, displacement units.
 
     A pluck sets a_k (real); a strike's velocity coefficients b_k become
     displacement amplitudes b_k / w_k in units of unit length and wave speed
     (w_k = pi f_k / f0), a quarter period behind (hence -i). ``position`` and
-    ``width`` override the settings' excitation (per-note control).
+    ``width`` override the settings' excitation (per-note control, or a fretted note's
+    fixed spot as a fraction of its speaking length); ``inharmonicity`` the sound's B
+    (a fretted string's own).
     """
     s = settings
     a, b = excitation_amplitudes(
@@ -45,7 +47,8 @@ def initial_amplitudes(settings: Settings, n_modes: int, position: float | None 
         s.get("excitation.width") if width is None else width,
         s.get("excitation.shape"),
     )
-    stretch = harmonic_stretch(s.get("string.inharmonicity"), n_modes)
+    stiffness = s.get("string.inharmonicity") if inharmonicity is None else inharmonicity
+    stretch = harmonic_stretch(stiffness, n_modes)
     return a - 1j * STRIKE_IMPULSE * b / (np.pi * stretch)
 
 

@@ -3,28 +3,36 @@
 It reads each channel message of a block on its sample and decides what happens to
 the voices: which one a note-on starts (a fresh slot, or one freed by stealing the
 quietest when all are busy), which a note-off releases or the pedal holds, which a
-re-pluck or all-sound-off fades. It owns the channel state (bend, RPN, sustain, MPE
-zones) and hands every controller it does not own to the controller router (the
+re-pluck or all-sound-off fades. On a fretted instrument it also decides where each note
+sounds (:class:`~rtvoice.engine.instrument.Instrument`: by the hand's fret or by channel), plays
+one note per string as a real string does (a new note on a sounding string fades the old one, as
+a re-pluck does) and leaves out a note no string can play, counting it. It owns the channel state
+(bend, RPN, sustain, MPE zones) and hands every controller it does not own to the controller router (the
 sound's controller map). What it decides goes to the voice renderer as
 :class:`~rtvoice.engine.changes.VoiceChange` records; it never touches a mode.
 """
 
 from __future__ import annotations
 
+from collections import deque
 from typing import Protocol
 
 import numpy as np
 
 from rtvoice.engine import midi
-from rtvoice.engine.changes import ChangeKind, NoteStart, VoiceChange
+from rtvoice.engine.changes import ChangeKind, Excitation, NoteStart, VoiceChange
 from rtvoice.engine.control_router import ControlRouter
+from rtvoice.engine.instrument import OPEN_PLACES, Instrument, Placement, string_and_fret
 from rtvoice.engine.voices import FADING, HELD, RELEASED, SOUNDING, VoicePool
 
 
 class LevelBounds(Protocol):
     """What the performer needs of the voice renderer to choose a voice to steal."""
 
-    def start_bound(self, velocity: int, initial: np.ndarray | None) -> float: ...
+    def start_bound(self, velocity: int, place: int, excitation: Excitation | None) -> float: ...
+
+
+PLACEMENTS_KEPT = 4096
 
 
 class Performer:
@@ -45,6 +53,10 @@ class Performer:
         self.bends_changed = False  # a channel's bend moved: ringing voices retune after the block
         self.accepting = True  # False while the pool waits to be rebuilt: note-ons are ignored
         self.stolen = 0
+        self.unplayable = 0  # note-ons that no string could play (left out)
+        #: Where the latest notes sounded (a render's summary and the UI read them; the oldest drop out).
+        self.placements: deque[Placement] = deque(maxlen=PLACEMENTS_KEPT)
+        self.instrument: Instrument | None = None  # None: the open rule (set by the engine)
         self._order = 0
         self._block_index = 0
         self._bound_block = -1  # the block in which pool.level was last refreshed for stealing (see _bounds)
@@ -82,10 +94,22 @@ class Performer:
         pool = self.pool
         n = pool.n_active
         state = pool.state[:n]
+        again = [v for v in self._slots_of(ch, note) if state[v] != FADING]
+        place = note
+        if self.instrument is not None:
+            placed = self._place(ch, note, again)
+            if placed is None:
+                self.unplayable += 1
+                return
+            self.placements.append(placed)
+            place = placed.place
+            # One note per string: whatever the string was playing stops, as a re-pluck does.
+            string = placed.string
+            again += [v for v in np.flatnonzero(pool.place[:n] >= OPEN_PLACES).tolist()
+                      if state[v] != FADING and string_and_fret(int(pool.place[v]))[0] == string and v not in again]
         # A re-plucked note stops its old vibration with a short fade, as a finger would.
-        for v in self._slots_of(ch, note):
-            if state[v] != FADING:
-                self.fade(v, at)
+        for v in again:
+            self.fade(v, at)
         sounding = np.flatnonzero(state != FADING)
         if sounding.size >= self.voices:
             bound = self._bounds()[sounding]
@@ -99,13 +123,29 @@ class Performer:
             v = int(np.argmin(np.where(fading, pool.fade_since[: pool.n_active], np.iinfo(np.int64).max)))
         pool.state[v] = SOUNDING
         pool.note[v] = note
+        pool.place[v] = place
         pool.velocity[v] = velocity
         pool.channel[v] = ch
         self._order += 1
         pool.order[v] = self._order
-        initial = self.router.note_excitation(ch)
-        pool.level[v] = self.levels.start_bound(velocity, initial)  # its level is not set up yet
-        self.changes.append(VoiceChange(v, at, ChangeKind.START, NoteStart(ch, note, velocity, initial, fresh)))
+        excitation = self.router.note_excitation(ch)
+        pool.level[v] = self.levels.start_bound(velocity, place, excitation)  # its level is not set up yet
+        start = NoteStart(ch, note, velocity, place, excitation, fresh)
+        self.changes.append(VoiceChange(v, at, ChangeKind.START, start))
+
+    def _place(self, ch: int, note: int, again: list[int]) -> Placement | None:
+        """Where a note-on sounds on the fretted instrument: the string its key already rings on (a
+        re-pluck), else the instrument's choice among the strings (MPE member channels by the hand)."""
+        assert self.instrument is not None
+        pool = self.pool
+        for v in again:
+            string, fret = string_and_fret(int(pool.place[v]))
+            if string:
+                return Placement(note, int(pool.place[v]), string, fret)
+        n = pool.n_active
+        sounding = {string_and_fret(int(p))[0] for p, s in zip(pool.place[:n], pool.state[:n], strict=True)
+                    if s != FADING}
+        return self.instrument.choose(note, ch, sounding, by_hand=self.channels.zone_master(ch) is not None)
 
     def _bounds(self) -> np.ndarray:
         """Level bounds of the slots for stealing, computed once per block.
@@ -119,7 +159,8 @@ class Performer:
             pool.level[: pool.n_active] = pool.bound()
             for change in self.changes:
                 if change.start is not None:
-                    pool.level[change.slot] = self.levels.start_bound(change.start.velocity, change.start.initial)
+                    start = change.start
+                    pool.level[change.slot] = self.levels.start_bound(start.velocity, start.place, start.excitation)
             self._bound_block = self._block_index
         return pool.level
 

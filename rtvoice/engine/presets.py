@@ -8,9 +8,14 @@ rename, fsync of the folder), so a crash never leaves a half-written preset.
 
 Presets are data only: the file is parsed as TOML and every value is checked
 against the schema; nothing in it is evaluated, imported or executed. Positions,
-widths and the scale length may be written as lengths with a unit
+slants, widths and the scale length may be written as lengths with a unit
 (``position = "40mm"``, ``scale_length_mm = "25.5in"``): the settings convert them
-with the scale length the whole file leaves, and a save writes them as numbers.
+with the scale length the whole file leaves. A save (``format = 2``) writes every
+position, slant and width in millimetres (``position = "129.6mm"``), the shortest
+decimal that reads back to the same value; a bare number there is a fraction of the
+open scale length. A preset from before (``format`` 1 or none) that holds bare
+fractions loads as it always did, with a one-line :class:`PresetFormatNotice` saying
+they will be saved in mm.
 
 Temporary files are named ``.NAME.toml.XXXX.tmp``: listing skips them (hidden,
 not ``*.toml``). A save killed between creating and renaming its temporary file
@@ -39,6 +44,8 @@ from pathlib import Path
 
 import tomli_w
 
+from rtvoice.engine.distances import FRACTION_FIELDS, SCALE_KEY, mm_text
+from rtvoice.engine.schema import PARAMS, PICKUP_FIELDS
 from rtvoice.engine.settings import PRESET_FORMAT, Settings, SettingsError
 from rtvoice.errors import UserError
 
@@ -58,6 +65,10 @@ class PresetError(UserError, ValueError):
 
 class PresetWarning(UserWarning):
     """A preset loaded with something left out (keys from a newer rtvoice); the message lists them."""
+
+
+class PresetFormatNotice(UserWarning):
+    """A preset from before positions were written in mm: loaded as before; it will be saved in mm."""
 
 
 TEMP_PATTERN = re.compile(r"^\.[A-Za-z0-9][A-Za-z0-9_-]{0,63}\.toml\..+\.tmp$")
@@ -145,7 +156,12 @@ def preset_from_bytes(raw: bytes, source: str, default_name: str = "") -> Settin
     if not text.strip():
         raise PresetError("empty file", source=source)
     ignored: list[str] = []
-    settings = Settings.from_toml_text(text, source=source, ignored=ignored)
+    old_fractions: list[str] = []
+    settings = Settings.from_toml_text(text, source=source, ignored=ignored, old_fractions=old_fractions)
+    if old_fractions:
+        warnings.warn(PresetFormatNotice(
+            f"{source}: written before positions were in mm; its fractions are read as fractions of the "
+            f"{settings.get(SCALE_KEY):g} mm scale length and will be saved in mm"), stacklevel=2)
     if ignored:
         shown = ", ".join(ignored[:12]) + (f" and {len(ignored) - 12} more" if len(ignored) > 12 else "")
         warnings.warn(PresetWarning(f"{source}: written by a newer rtvoice; left out what this version does "
@@ -158,8 +174,19 @@ def load_preset(name_or_path: str) -> Settings:
 
 
 def preset_text(settings: Settings) -> str:
-    """The preset as TOML, with every list of tables written as ``[[name]]`` blocks."""
+    """The preset as TOML, with every list of tables written as ``[[name]]`` blocks.
+
+    Positions, slants and widths are written in millimetres (see
+    :func:`rtvoice.engine.distances.mm_text`), so the file reads as a builder measures.
+    """
     data = settings.to_nested()
+    scale_mm = settings.get(SCALE_KEY)
+    tables = [(data["excitation"], {f: PARAMS[f"excitation.{f}"] for f in FRACTION_FIELDS
+                                    if f"excitation.{f}" in PARAMS})]
+    tables += [(pickup, {f: PICKUP_FIELDS[f] for f in FRACTION_FIELDS}) for pickup in data["pickup"]]
+    for table, params in tables:
+        for f, param in params.items():
+            table[f] = mm_text(table[f], param, scale_mm)
     lists = {k: data.pop(k) for k in list(data) if isinstance(data[k], list) and data[k]
              and all(isinstance(v, dict) for v in data[k])}
     parts = [f"format = {PRESET_FORMAT}\n", tomli_w.dumps(data)]
@@ -306,6 +333,7 @@ def rename_preset(old: str, new: str) -> Path:
 
 __all__ = [
     "PresetError",
+    "PresetFormatNotice",
     "PresetInfo",
     "PresetWarning",
     "SettingsError",

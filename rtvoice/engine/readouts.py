@@ -12,6 +12,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from rtvoice.engine.instrument import MAX_FRETS, OPEN_PLACES, Placement, string_and_fret
 from rtvoice.engine.renderer import OUTPUT_SCALE, Engine
 from rtvoice.engine.voices import FADING, HELD
 
@@ -25,6 +26,8 @@ class VoiceReadout:
     note: int = -1
     velocity: int = 0
     voices: int = 0
+    string: int = 0  # where the loudest voice sounds on a fretted instrument (1 = highest); 0 under the open rule
+    fret: int = -1
 
 
 def loudest_voice_into(engine: Engine, levels: np.ndarray, freqs_hz: np.ndarray, work: np.ndarray,
@@ -37,6 +40,7 @@ def loudest_voice_into(engine: Engine, levels: np.ndarray, freqs_hz: np.ndarray,
     n = pool.n_active
     if n == 0:
         into.modes, into.note, into.velocity, into.voices = 0, -1, 0, 0
+        into.string, into.fret = 0, -1
         return into
     v = engine.loudest_voice()
     m = min(pool.modes, levels.size)
@@ -45,8 +49,63 @@ def loudest_voice_into(engine: Engine, levels: np.ndarray, freqs_hz: np.ndarray,
     levels[:m] *= OUTPUT_SCALE * gain
     np.multiply(pool.omega[v, :m], 1 / (2 * np.pi), out=freqs_hz[:m])
     into.modes, into.note, into.velocity = m, int(pool.note[v]), int(pool.velocity[v])
+    into.string, into.fret = string_and_fret(int(pool.place[v]))
     into.voices = int(np.count_nonzero(pool.state[:n] != FADING))
     return into
+
+
+def take_placements(engine: Engine) -> list[Placement]:
+    """Where the notes started since the last call sounded (string and fret), oldest first; the
+    engine keeps the latest few thousand between calls."""
+    kept = engine.performer.placements
+    taken = list(kept)
+    kept.clear()
+    return taken
+
+
+@dataclass(frozen=True)
+class SoundingPlace:
+    """A voice still sounding (not fading) on a fretted instrument: its string, fret and note, and its
+    level bound (linear, output units before the gain) as the retire check last measured it."""
+
+    string: int
+    fret: int
+    note: int
+    level: float
+
+
+def sounding_places(engine: Engine) -> list[SoundingPlace]:
+    """Every voice sounding on a string and fret, loudest first (none under the open rule)."""
+    pool = engine.pool
+    n = pool.n_active
+    out = []
+    for v in range(n):
+        string, fret = string_and_fret(int(pool.place[v]))
+        if string and pool.state[v] != FADING:
+            out.append(SoundingPlace(string, fret, int(pool.note[v]), float(pool.level[v])))
+    return sorted(out, key=lambda p: -p.level)
+
+
+def sounding_places_into(engine: Engine, frets: np.ndarray, levels: np.ndarray) -> int:
+    """Per string, the fret its sounding voice plays (``frets[string - 1]``, -1 when the string is
+    silent or fading) and that voice's level bound (``levels``, linear, output units before the gain);
+    returns how many strings sound. For the audio callback: writes into the caller's arrays, one
+    entry per string they hold, and allocates no array (one pass over the active slots)."""
+    frets[:] = -1
+    levels[:] = 0.0
+    pool = engine.pool
+    count = 0
+    per_string = MAX_FRETS + 1
+    for v in range(pool.n_active):
+        rel = int(pool.place[v]) - OPEN_PLACES
+        if rel < 0 or pool.state[v] == FADING:
+            continue
+        string0 = rel // per_string
+        if string0 < frets.size:
+            count += frets[string0] < 0
+            frets[string0] = rel - string0 * per_string
+            levels[string0] = pool.level[v]
+    return count
 
 
 def held_voice(engine: Engine, note: int, channel: int) -> int:

@@ -33,7 +33,8 @@ from rtvoice.engine.controls import ControlMap, default_entries
 from rtvoice.engine.events import EngineEvent
 from rtvoice.engine.exact_path import apply_changes
 from rtvoice.engine.housekeeping import Housekeeping
-from rtvoice.engine.notes import initial_amplitudes, resonance_of
+from rtvoice.engine.instrument import Instrument
+from rtvoice.engine.notes import resonance_of
 from rtvoice.engine.output import CEILING, OUTPUT_SCALE, Limiter, output_stage
 from rtvoice.engine.performer import Performer
 from rtvoice.engine.settings import Settings
@@ -41,8 +42,11 @@ from rtvoice.engine.smoothing import GainGlide, PickupGlide, smoothing_alpha
 from rtvoice.engine.voice_renderer import VoiceRenderer
 from rtvoice.engine.voices import VoicePool
 
-#: Parameters the voice renderer's note set-up reads: what the next note-on is made of.
-NOTE_PARAM_PREFIXES = ("string.", "excitation.")
+#: Parameters the voice renderer's note set-up reads: what the next note-on is made of (``strings``
+#: covers a change of the string count and every string's own fields).
+NOTE_PARAM_PREFIXES = ("string.", "excitation.", "instrument.", "strings")
+#: Parameters only the performer reads: where the next note sounds.
+PLACING_PREFIXES = ("instrument.", "hand.", "strings")
 #: Parameters that size the voice pool: a change fades every voice and rebuilds the pool.
 POOL_PARAMS = ("voices", "string.modes")
 
@@ -58,6 +62,7 @@ class EngineStats:
     gain_reduction_db: float = 0.0
     clipped: int = 0
     stolen: int = 0
+    unplayable: int = 0  # note-ons no string could play (left out)
     dropped_bad: int = 0
     blocks: int = 0
     latency_frames: int = 0  # fixed: the limiter's look-ahead (every sample comes out this much later)
@@ -105,6 +110,7 @@ class Engine:
         self.voice_renderer.build(self.voices, self.settings.get("string.modes"), self.glide.now)
         self.performer = Performer(self.router, self.voice_renderer, self.voices, self.block)
         self.performer.attach(self.voice_renderer.pool, self.voices)
+        self._place_notes()
         self._pending_rebuild: Settings | None = None
 
     @property
@@ -121,10 +127,6 @@ class Engine:
     def initial(self) -> np.ndarray:
         """Initial mode amplitudes a full-velocity note-on would get now (read-only copy)."""
         return self.voice_renderer.initial.copy()
-
-    def excitation_initial(self, position: float, width: float) -> np.ndarray:
-        """Initial mode amplitudes of an excitation at ``position`` with ``width`` (per-note control)."""
-        return initial_amplitudes(self.settings, self.pool.modes, position, width)
 
     def output_filter(self) -> tuple[np.ndarray, np.ndarray]:
         """(b, a) of the whole linear output stage, as for scipy.signal.lfilter: output scale, coil and cable
@@ -155,6 +157,8 @@ class Engine:
             self.performer.begin_block(self.stats.blocks)  # (the fades are dated by the block to come)
             self.performer.fade_all(0)
             return
+        if any(n.startswith(PLACING_PREFIXES) for n in changed):
+            self._place_notes()
         if any(n.startswith(NOTE_PARAM_PREFIXES) for n in changed):  # not for a moving pickup: 70 us saved
             voices.prepare_notes()
         elif any(n.startswith("tuning.") for n in changed):
@@ -162,6 +166,11 @@ class Engine:
         if any(n.startswith("electronics.") for n in changed):
             voices.prepare_electronics()
         self.gain.target = _gain_of(settings)
+
+    def _place_notes(self) -> None:
+        """The performer places notes on strings and frets, unless every note is an open string."""
+        instrument = Instrument.from_settings(self.settings)
+        self.performer.instrument = instrument if instrument.fretted else None
 
     def load_sound(self, settings: Settings) -> None:
         """Play a whole sound: its settings and its controller map (the default map when it has none)."""
@@ -205,6 +214,7 @@ class Engine:
         if self._pending_rebuild is not None and voices.pool.n_active == 0:
             self._rebuild()
         self.stats.stolen = performer.stolen
+        self.stats.unplayable = performer.unplayable
         self.stats.dropped_bad = self.housekeeping.dropped_bad
         if self.router.pending:  # controllers moved in this block: the next ones hear the change
             self.router.after_block(self.stats.blocks * self.block / self.fs)

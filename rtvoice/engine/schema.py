@@ -3,7 +3,10 @@ and controller mapping.
 
 Every parameter has a canonical dotted name, a kind, a unit, a default, a range and
 a one-line help. Pickups are a list: their fields are addressed as
-``pickup.<index>.<field>`` (for example ``pickup.0.position``).
+``pickup.<index>.<field>`` (for example ``pickup.0.position``). The instrument's strings
+are a list too, numbered as players number them, string 1 (the highest) first:
+``strings.<n>.<field>`` (for example ``strings.6.diameter_mm``); their values live in
+:mod:`rtvoice.engine.stringing`.
 """
 
 from __future__ import annotations
@@ -16,8 +19,10 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from rtvoice.errors import UserError
+from rtvoice.physics.strings import MATERIALS
 
 MAX_PICKUPS = 4
+MAX_STRINGS = 12
 MAX_SHAPE_POINTS = 64
 SUGGEST_CUTOFF = 0.75  # difflib ratio: "inharmonicty" -> "inharmonicity" (0.97), not "colour" -> "t60_low"
 
@@ -159,13 +164,22 @@ _PARAMS = [
     Param("string.release", "float", 0.15, "s", 0.01, 10.0, log_scale=True,
           help="T60 after note-off (a muted string), unless the sustain pedal holds it."),
     Param("string.scale_length_mm", "float", 648.0, "mm", 100.0, 2000.0,
-          help="Speaking length from bridge to nut, for showing positions in mm."),
+          help="Open speaking length from the bridge saddle to the nut; positions are fractions of it."),
+    Param("instrument.assign", "choice", "open", choices=("open", "hand", "channel"),
+          help="open: every note an open string of its own (positions: fractions of its length); hand: the "
+               "string where the note is nearest hand.fret; channel: MIDI channel n plays string n."),
+    Param("instrument.frets", "int", 22, "", 0, 36, help="Number of frets on the neck."),
+    Param("hand.fret", "float", 3.0, "", 0.0, 36.0, live=True,
+          help="Where the fretting hand sits, as a fret number; the hand rule gives a note to the string on "
+               "which it falls closest to this fret."),
     Param("excitation.kind", "choice", "pluck", choices=("pluck", "strike"),
           help="pluck: initial displacement; strike: initial velocity."),
     Param("excitation.position", "float", 0.2, "", 0.01, 0.99,
-          help="Where the string is plucked or struck, as a fraction of its length from the bridge."),
+          help="Where the string is plucked or struck: from the bridge saddle, as a fraction of the open "
+               "scale length (or a length: 162mm)."),
     Param("excitation.width", "float", 0.01, "", 0.0, 0.5,
-          help="Contact width of finger, plectrum or hammer, as a fraction of the length."),
+          help="Contact width of finger, plectrum or hammer, as a fraction of the open scale length "
+               "(or a length: 6mm)."),
     Param("excitation.shape", "shape", (),
           help="Optional initial profile as [x, y] breakpoints; replaces the triangle or contact."),
     Param("electronics.resonance_hz", "float", 4200.0, "Hz", 0.0, 20000.0, live=True,
@@ -189,9 +203,14 @@ PICKUP_FIELDS: dict[str, Param] = {
     p.name.split(".")[-1]: p
     for p in [
         Param("pickup.N.position", "float", 0.15, "", 0.005, 0.995, live=True,
-              help="Centre of the pickup, as a fraction of the length from the bridge."),
+              help="Centre of the pickup: from the bridge saddle, as a fraction of the open scale length "
+                   "(or a length: 162mm)."),
+        Param("pickup.N.slant", "float", 0.0, "", -0.2, 0.2, live=True,
+              help="Treble-side minus bass-side distance, as a fraction of the open scale length "
+                   "(or a length: -8mm); the centre stays at position."),
         Param("pickup.N.width", "float", 0.02, "", 0.0, 0.5, live=True,
-              help="Aperture: the width of string the pickup senses, as a fraction of the length."),
+              help="Aperture: the width of string the pickup senses, as a fraction of the open scale length "
+                   "(or a length: 13mm)."),
         Param("pickup.N.sensing", "choice", "velocity", choices=("velocity", "displacement"), live=True,
               help="velocity: magnetic (weights mode k by its frequency); displacement: optical."),
         Param("pickup.N.level_db", "float", 0.0, "dB", -60.0, 12.0, live=True, help="Pickup level."),
@@ -200,13 +219,45 @@ PICKUP_FIELDS: dict[str, Param] = {
     ]
 }
 
+#: The fields of one string, ``strings.<n>.<field>``. ``None`` is allowed where the default is None
+#: (written ``none`` on the command line; left out of a preset): a plain string has no core or wrap,
+#: and the tension, B and T60s then come from the gauge and the instrument.
+STRING_FIELDS: dict[str, Param] = {
+    p.name.split(".")[-1]: p
+    for p in [
+        Param("strings.N.note", "int", 64, "", 0, 127,
+              help="Open note, a MIDI number or a name (E2); string 1 is the highest."),
+        Param("strings.N.diameter_mm", "float", 0.254, "mm", 0.05, 5.0,
+              help="Outer diameter (or a length: 0.046in)."),
+        Param("strings.N.core_mm", "float", None, "mm", 0.05, 5.0,
+              help="Core diameter of a wound string; none for a plain string."),
+        Param("strings.N.material", "choice", "music_wire", choices=tuple(MATERIALS),
+              help="Material of the wire that carries the tension (the core of a wound string)."),
+        Param("strings.N.wrap", "choice", None, choices=tuple(MATERIALS),
+              help="Wrap wire of a wound string (nickel_plated_steel unless given); none for a plain string."),
+        Param("strings.N.tension_n", "float", None, "N", 1.0, 2000.0,
+              help="Measured tension, when the gauge alone cannot give it; none: from the gauge."),
+        Param("strings.N.inharmonicity", "float", None, "", 0.0, 0.01, log_scale=True,
+              help="B of the open string, winning over the gauge's; none: from the gauge (Fletcher 1964)."),
+        Param("strings.N.t60_low", "float", None, "s", 0.05, 60.0, log_scale=True,
+              help="This string's T60 at 100 Hz; none: string.t60_low."),
+        Param("strings.N.t60_high", "float", None, "s", 0.01, 60.0, log_scale=True,
+              help="This string's T60 at 2000 Hz; none: string.t60_high."),
+    ]
+}
+
 PARAMS: dict[str, Param] = {p.name: p for p in _PARAMS}
 TOP_LEVEL_TEXT = ("name", "description")
 _PICKUP_NAME = re.compile(r"^pickup\.(\d+)\.([a-z_0-9]+)$")
+_STRING_NAME = re.compile(r"^strings\.(\d+)\.([a-z_0-9]+)$")
 
 
 def lookup(name: str) -> tuple[Param, int | None]:
-    """(Param, pickup index or None) for a canonical dotted name; :class:`UnknownParameter` if unknown."""
+    """(Param, index) for a canonical dotted name; :class:`UnknownParameter` if unknown.
+
+    The index is None for a parameter of the whole sound, the pickup's index (from 0) for
+    ``pickup.<i>.<field>`` and the string's number (from 1) for ``strings.<n>.<field>``.
+    """
     if name in PARAMS:
         return PARAMS[name], None
     m = _PICKUP_NAME.match(name)
@@ -216,17 +267,31 @@ def lookup(name: str) -> tuple[Param, int | None]:
             raise UnknownParameter(name, f"at most {MAX_PICKUPS} pickups (index 0..{MAX_PICKUPS - 1})",
                                    shown_name=True)
         return PICKUP_FIELDS[m.group(2)], index
+    m = _STRING_NAME.match(name)
+    if m and m.group(2) in STRING_FIELDS:
+        number = int(m.group(1))
+        if not 1 <= number <= MAX_STRINGS:
+            raise UnknownParameter(name, f"strings are numbered 1..{MAX_STRINGS} (string 1 the highest)",
+                                   shown_name=True)
+        return STRING_FIELDS[m.group(2)], number
     raise UnknownParameter(name, f"unknown parameter {name!r}")
 
 
 def closest_name(name: str) -> str:
     """The real parameter name closest to a mistyped ``name`` ('' when none is close)."""
-    names = all_names(1)
+    names = all_names(1) + [f"strings.1.{f}" for f in STRING_FIELDS]
     index = re.search(r"\.(\d+)\.", name)
     if index and int(index.group(1)) < MAX_PICKUPS:  # keep the pickup the name meant
         names = [n.replace("pickup.0.", f"pickup.{index.group(1)}.") for n in names]
+    if index and 1 <= int(index.group(1)) <= MAX_STRINGS:  # ... and the string
+        names = [n.replace("strings.1.", f"strings.{index.group(1)}.") for n in names]
     close = difflib.get_close_matches(name, names, n=1, cutoff=SUGGEST_CUTOFF)
     return close[0] if close else ""
+
+
+def string_names(n_strings: int) -> list[str]:
+    """Every ``strings.<n>.<field>`` name of ``n_strings`` strings, string 1 first."""
+    return [f"strings.{n}.{f}" for n in range(1, n_strings + 1) for f in STRING_FIELDS]
 
 
 def all_names(n_pickups: int) -> list[str]:

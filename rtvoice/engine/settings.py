@@ -4,7 +4,8 @@ A :class:`Settings` is built from defaults, a preset's nested tables or dotted
 ``name=value`` changes, and is checked as a whole (single values against the
 schema, then the rules that tie values together). Invalid input raises
 :class:`SettingsError`, which names the source, the key, the value and what is
-allowed; nothing partial is ever returned.
+allowed; nothing partial is ever returned. Positions, slants and widths: see
+:mod:`rtvoice.engine.distances`; the instrument's strings: :mod:`rtvoice.engine.stringing`.
 """
 
 from __future__ import annotations
@@ -12,36 +13,47 @@ from __future__ import annotations
 import math
 import tomllib
 from collections.abc import Callable, Iterable, Mapping
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field, replace
 from typing import Any
 
+from rtvoice.engine import stringing
 from rtvoice.engine.controls import check_entries
+from rtvoice.engine.distances import (
+    SCALE_KEY,
+    bare_fraction_keys,
+    check_geometry,
+    checked_mm,
+    fraction_from_text,
+    is_fraction_of_length,
+)
 from rtvoice.engine.schema import (
     MAX_PICKUPS,
     PARAMS,
     PICKUP_FIELDS,
+    STRING_FIELDS,
     TOP_LEVEL_TEXT,
-    Param,
     UnknownParameter,
     added_pickup,
     all_names,
     closest_name,
     default_pickup,
     lookup,
+    string_names,
 )
 from rtvoice.engine.schema import SettingsError as SettingsError  # defined beside the schema, re-exported from here
-from rtvoice.engine.units import LENGTH_EXAMPLES, Length, fraction_of_string, length_within, parse_length
+from rtvoice.engine.stringing import DEFAULT_STRINGS, StringEntry
 from rtvoice.physics.damping import loss_coefficients
 
 MAX_TEXT = 2000
-#: The preset layout this version writes (``format = 1``). A preset that declares a larger number comes
-#: from a newer rtvoice: keys this version does not know are then skipped and reported, not refused.
-PRESET_FORMAT = 1
+#: The preset layout this version writes (``format = 2``: positions, slants and widths in mm). A preset
+#: that declares a larger number comes from a newer rtvoice: keys this version does not know are then
+#: skipped and reported, not refused. Format 1 (or none) wrote them as bare fractions of the scale length.
+PRESET_FORMAT = 2
+MM_FORMAT = 2  # the first format that writes positions in mm
 MAX_TOML_DEPTH = 32  # tables and arrays nested deeper than any preset needs (tomllib recurses per level)
 INT64 = 2**63  # TOML 1.0: integers are 64-bit; larger ones "must" be an error
 MIN_RESONANCE_HZ = 200.0  # pickup resonances lie in the kHz range; 0 bypasses the filter
 MIN_INDUCTANCE_H = 0.01  # below this a "coil" is no pickup; 0 switches the circuit model off
-SCALE_KEY = "string.scale_length_mm"
 
 
 @dataclass(frozen=True)
@@ -53,6 +65,7 @@ class Settings:
     name: str = ""
     description: str = ""
     controls: tuple[Mapping[str, Any], ...] | None = None  # [[control]] map; None: the default map
+    strings: tuple[StringEntry, ...] = field(default=DEFAULT_STRINGS)  # string 1 (the highest) first
 
     # -- construction -------------------------------------------------------------
     @classmethod
@@ -62,16 +75,20 @@ class Settings:
 
     @classmethod
     def from_nested(cls, data: Mapping[str, Any], source: str = "", base: Settings | None = None,
-                    ignored: list[str] | None = None) -> Settings:
-        """Settings from preset tables (``[string]``, ``[[pickup]]``, ...) over ``base``.
+                    ignored: list[str] | None = None, old_fractions: list[str] | None = None) -> Settings:
+        """Settings from preset tables (``[string]``, ``[[pickup]]``, ``[[strings]]``, ...) over ``base``.
 
         Unknown keys are refused (a misspelt key must not silently leave a sound
         different from what was written), except in a preset whose ``format`` is
         newer than :data:`PRESET_FORMAT`: there they are skipped and their dotted
-        names appended to ``ignored`` for the caller to report.
+        names appended to ``ignored`` for the caller to report. A preset from before
+        :data:`MM_FORMAT` (``format`` 1 or none) that gives positions, slants or widths
+        as bare fractions has their names appended to ``old_fractions``: they are read
+        as fractions of the open scale length, as they always were.
         """
         base = base or cls.defaults()
-        newer = _preset_format(data.get("format", PRESET_FORMAT), source) > PRESET_FORMAT
+        declared = _preset_format(data.get("format", PRESET_FORMAT), source)
+        newer = declared > PRESET_FORMAT
         skipped: list[str] = []
 
         def unknown(key: str, value: Any, reason: str = "unknown key", suggestion: str = "") -> None:
@@ -82,6 +99,7 @@ class Settings:
         changes: dict[str, Any] = {}
         name, description = base.name, base.description
         pickups: list[dict[str, Any]] | None = None
+        strings: list[dict[str, Any]] | None = None
         controls = base.controls
         for top, value in data.items():
             if top == "format":
@@ -94,6 +112,8 @@ class Settings:
                 changes["voices"] = value
             elif top == "pickup":
                 pickups = _read_pickups(value, source, unknown)
+            elif top == "strings":
+                strings = stringing.read_tables(value, source, unknown)
             elif top == "control":
                 if not isinstance(value, list):
                     raise SettingsError("control", value, "expected [[control]] tables", source)
@@ -116,14 +136,17 @@ class Settings:
                 for f, v in item.items():
                     changes[f"pickup.{i}.{f}"] = v
         n_pickups = None if pickups is None else len(pickups)
-        settings = base._changed(changes, source, name, description, n_pickups=n_pickups)
+        settings = base._changed(changes, source, name, description, n_pickups=n_pickups, string_tables=strings)
         if ignored is not None:
             ignored.extend(skipped)
+        if old_fractions is not None and ("format" not in data or declared < MM_FORMAT):
+            old_fractions.extend(bare_fraction_keys(data))
         return settings if controls is base.controls else replace(settings, controls=controls)
 
     @classmethod
-    def from_toml_text(cls, text: str, source: str = "", ignored: list[str] | None = None) -> Settings:
-        """Settings from a preset's TOML text; see :meth:`from_nested` for ``ignored``."""
+    def from_toml_text(cls, text: str, source: str = "", ignored: list[str] | None = None,
+                       old_fractions: list[str] | None = None) -> Settings:
+        """Settings from a preset's TOML text; see :meth:`from_nested` for ``ignored`` and ``old_fractions``."""
         try:
             data = tomllib.loads(text)
         except tomllib.TOMLDecodeError as err:
@@ -131,10 +154,10 @@ class Settings:
         except RecursionError:
             raise SettingsError("(file)", "", "tables or arrays nested too deeply", source) from None
         _check_plain_data(data, source)
-        return cls.from_nested(data, source, ignored=ignored)
+        return cls.from_nested(data, source, ignored=ignored, old_fractions=old_fractions)
 
     def with_values(self, changes: Mapping[str, Any], source: str = "") -> Settings:
-        """A copy with dotted-name ``changes`` applied; pickups may grow by appending index n."""
+        """A copy with dotted-name ``changes`` applied; pickups (strings) may grow by appending index n (n + 1)."""
         return self._changed(dict(changes), source, self.name, self.description)
 
     def with_pickup_count(self, n: int) -> Settings:
@@ -143,15 +166,20 @@ class Settings:
         pickups = list(self.pickups[:n])
         while len(pickups) < n:
             pickups.append(added_pickup(pickups))
-        return Settings(self.values, tuple(pickups), self.name, self.description, self.controls)
+        return replace(self, pickups=tuple(pickups))
+
+    def with_string_count(self, n: int, source: str = "") -> Settings:
+        """A copy with ``n`` strings: the lowest dropped, or added a fourth below the last (see stringing)."""
+        return self._changed({}, source, self.name, self.description, n_strings=n)
 
     def renamed(self, name: str, description: str | None = None) -> Settings:
-        return Settings(self.values, self.pickups, name, self.description if description is None else description,
-                        self.controls)
+        return replace(self, name=name, description=self.description if description is None else description)
 
     def _changed(self, changes: dict[str, Any], source: str, name: str, description: str,
-                 n_pickups: int | None = None) -> Settings:
+                 n_pickups: int | None = None, n_strings: int | None = None,
+                 string_tables: list[dict[str, Any]] | None = None) -> Settings:
         changes = self._resolve_lengths(changes, source)
+        string_changes: dict[str, Any] = {}
         values = dict(self.values)
         pickups = [dict(p) for p in self.pickups]
         if n_pickups is not None:
@@ -163,6 +191,9 @@ class Settings:
                 param, index = lookup(key)
             except UnknownParameter as err:
                 raise SettingsError.unknown_name(err, raw, source) from None
+            if key.startswith("strings."):
+                string_changes[key] = raw  # read by stringing, which knows note names and lengths in mm
+                continue
             try:
                 value = param.check(raw)
             except (ValueError, OverflowError) as err:  # OverflowError: an int beyond float range
@@ -177,7 +208,9 @@ class Settings:
             pickups[index][key.rsplit(".", 1)[1]] = value
         if not pickups:
             raise SettingsError("pickup", [], "at least one pickup is needed", source)
-        settings = Settings(values, tuple(pickups), name, description, self.controls)
+        strings = stringing.strings_after(self.strings, string_changes, source, tables=string_tables,
+                                          count=n_strings)
+        settings = Settings(values, tuple(pickups), name, description, self.controls, strings)
         settings._check_together(source)
         return settings
 
@@ -193,10 +226,10 @@ class Settings:
         out = dict(changes)
         scale_mm = self.values[SCALE_KEY]
         if SCALE_KEY in out:
-            scale_mm = out[SCALE_KEY] = _checked_mm(PARAMS[SCALE_KEY], SCALE_KEY, out[SCALE_KEY], source)
+            scale_mm = out[SCALE_KEY] = checked_mm(PARAMS[SCALE_KEY], SCALE_KEY, out[SCALE_KEY], source)
         for key, raw in out.items():
             if isinstance(raw, str) and is_fraction_of_length(key):
-                out[key] = _fraction_from_text(lookup(key)[0], key, raw, scale_mm, source)
+                out[key] = fraction_from_text(lookup(key)[0], key, raw, scale_mm, source)
         return out
 
     def _check_together(self, source: str) -> None:
@@ -213,12 +246,18 @@ class Settings:
         if 0.0 < ind < MIN_INDUCTANCE_H:
             raise SettingsError("electronics.inductance_h", ind,
                                 f"use 0 (circuit off) or at least {MIN_INDUCTANCE_H:g} H", source)
+        check_geometry(self, source)
+        stringing.check_strings(self, source)
 
     # -- reading ------------------------------------------------------------------
     def get(self, name: str) -> Any:
         param, index = lookup(name)
         if index is None:
             return self.values[name]
+        if name.startswith("strings."):
+            if index > len(self.strings):
+                raise KeyError(f"{name}: there are {len(self.strings)} strings")
+            return self.strings[index - 1].value(name.rsplit(".", 1)[1])
         if index >= len(self.pickups):
             raise KeyError(f"{name}: there are {len(self.pickups)} pickups")
         return self.pickups[index][name.rsplit(".", 1)[1]]
@@ -227,19 +266,29 @@ class Settings:
         return self.get(name)
 
     def names(self) -> list[str]:
+        """Every canonical name but the strings' (see :meth:`string_names`), in schema order."""
         return all_names(len(self.pickups))
 
+    def string_names(self) -> list[str]:
+        """Every ``strings.<n>.<field>`` name of these strings, string 1 first."""
+        return string_names(len(self.strings))
+
     def flat(self) -> dict[str, Any]:
-        """Every canonical name with its value."""
+        """Every canonical name but the strings' with its value."""
         return {n: self.get(n) for n in self.names()}
 
     def differences(self, other: Settings) -> list[str]:
-        """Canonical names whose values differ (pickup count changes show as ``pickup``)."""
+        """Canonical names whose values differ (pickup and string count changes show as ``pickup``, ``strings``)."""
         diff = [n for n in PARAMS if self.values[n] != other.values[n]]
         if len(self.pickups) != len(other.pickups):
             diff.append("pickup")
         for i, (a, b) in enumerate(zip(self.pickups, other.pickups, strict=False)):
             diff += [f"pickup.{i}.{f}" for f in PICKUP_FIELDS if a[f] != b[f]]
+        if len(self.strings) != len(other.strings):
+            diff.append("strings")
+        for n, (c, d) in enumerate(zip(self.strings, other.strings, strict=False), start=1):
+            if c != d:  # compared whole first: differences() runs at every change, most leave the strings be
+                diff += [f"strings.{n}.{f}" for f in STRING_FIELDS if c.value(f) != d.value(f)]
         return diff
 
     def to_nested(self) -> dict[str, Any]:
@@ -258,53 +307,10 @@ class Settings:
                 value = [list(p) for p in value]
             out.setdefault(table, {})[sub] = value
         out["pickup"] = [dict(p) for p in self.pickups]
+        out["strings"] = [s.table() for s in self.strings]
         if self.controls is not None:
             out["control"] = [dict(c) for c in self.controls]
         return out
-
-
-def is_fraction_of_length(key: str) -> bool:
-    """Positions and widths: fractions of the speaking length, which may also be typed as lengths."""
-    try:
-        param, _ = lookup(key)
-    except UnknownParameter:
-        return False
-    return key.startswith(("pickup.", "excitation.")) and key.rsplit(".", 1)[1] in ("position", "width") \
-        and param.kind == "float" and not param.unit
-
-
-def _length(key: str, raw: str, source: str, what: str) -> Length:
-    try:
-        return parse_length(raw)
-    except ValueError as err:
-        reason = str(err) if "finite" in str(err) else f"expected {what} or a length like {LENGTH_EXAMPLES}"
-        raise SettingsError(key, raw, reason, source) from None
-
-
-def _fraction_from_text(param: Param, key: str, raw: str, scale_mm: float, source: str) -> float:
-    """A position or width typed as a length, as a fraction of ``scale_mm``; refused in the typed unit."""
-    length = _length(key, raw, source, f"a fraction of the length ({param.describe_range()})")
-    assert param.low is not None and param.high is not None  # positions and widths have a range in the schema
-    try:
-        return fraction_of_string(length, param.low, param.high, scale_mm)
-    except ValueError as err:
-        raise SettingsError(key, raw, str(err), source) from None
-
-
-def _checked_mm(param: Param, key: str, raw: Any, source: str) -> float:
-    """A length in mm (a number, or text with its unit), checked against ``param``'s range in the typed unit."""
-    if not isinstance(raw, str):
-        try:
-            mm: float = param.check(raw)  # a float parameter's check gives a float
-            return mm
-        except (ValueError, OverflowError) as err:
-            raise SettingsError(key, raw, str(err), source, allowed=param.describe_range()) from None
-    length = _length(key, raw, source, "a number of millimetres")
-    assert param.low is not None and param.high is not None  # the scale length has a range in the schema
-    try:
-        return length_within(length, param.low, param.high)
-    except ValueError as err:
-        raise SettingsError(key, raw, str(err), source) from None
 
 
 def _read_pickups(value: Any, source: str, unknown: Callable[[str, Any, str, str], None]) -> list[dict[str, Any]]:

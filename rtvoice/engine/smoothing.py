@@ -16,7 +16,7 @@ import numpy as np
 
 SMOOTHING_S = 0.015  # time constant of live parameter smoothing
 #: A pickup's smoothed fields; its sensing and polarity jump (they cannot glide).
-GLIDING_FIELDS = ("position", "width", "level_db")
+GLIDING_FIELDS = ("position", "width", "level_db", "slant")
 
 
 def smoothing_alpha(block_frames: int, sample_rate_hz: float) -> float:

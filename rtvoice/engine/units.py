@@ -15,10 +15,14 @@ from __future__ import annotations
 
 import math
 import re
-from dataclasses import dataclass
+from dataclasses import dataclass, field
+from fractions import Fraction
 
 #: Millimetres per unit a length may be typed in.
 MM_PER_UNIT: dict[str, float] = {"mm": 1.0, "cm": 10.0, "in": 25.4}
+#: The same, exactly (the inch is 25.4 mm by definition): a typed length is divided by the scale
+#: as an exact rational and rounded once, so "129.6mm" of a 648 mm scale is exactly the float 0.2.
+_EXACT_MM_PER_UNIT = {"mm": Fraction(1), "cm": Fraction(10), "in": Fraction(254, 10)}
 LENGTH_EXAMPLES = "40mm, 4cm or 1.5in"
 
 MIDI_NOTE_LOW, MIDI_NOTE_HIGH = 0, 127
@@ -36,6 +40,7 @@ class Length:
 
     number: float
     unit: str
+    decimal: str = field(default="", compare=False)  # the number as typed, read exactly (see fraction_of_string)
 
     @property
     def mm(self) -> float:
@@ -59,7 +64,7 @@ def parse_length(text: str) -> Length:
     number_text, unit = split_unit(text)
     if unit is None:
         raise ValueError(f"expected a length like {LENGTH_EXAMPLES}, got {str(text)!r}")
-    return Length(_finite(number_text, text), unit)
+    return Length(_finite(number_text, text), unit, number_text)
 
 
 def parse_length_mm(text: str) -> float:
@@ -87,7 +92,19 @@ def fraction_of_string(length: Length, low: float, high: float, scale_mm: float)
         if length.mm > scale_mm:
             raise ValueError(f"{length.text()} is out of range: beyond the {string} string (allowed {allowed})")
         raise ValueError(f"{length.text()} is out of range (allowed {allowed} on the {string} string)")
-    return min(max(length.mm / scale_mm, low), high)
+    return min(max(_exact_ratio(length, scale_mm), low), high)
+
+
+def _exact_ratio(length: Length, scale_mm: float) -> float:
+    """length / scale_mm rounded once from the exact quotient of the typed decimal (so a fraction
+    saved as its shortest decimal in mm reads back to the same float); plain division otherwise."""
+    if not length.decimal:
+        return length.mm / scale_mm
+    try:
+        exact = Fraction(length.decimal)
+    except (ValueError, ZeroDivisionError):
+        return length.mm / scale_mm
+    return float(exact * _EXACT_MM_PER_UNIT[length.unit] / Fraction(scale_mm))
 
 
 def length_within(length: Length, low_mm: float, high_mm: float) -> float:

@@ -17,6 +17,10 @@ The output filter (output scale, electronics, DC blocker) acts on modes, not on
 samples: its steady gain H(p) rides on each mode's weight, and its free response
 after each change is added by :class:`~rtvoice.engine.modal_filter.ModalFilter`,
 so no block is filtered (the same output as filtering the samples).
+
+On a fretted instrument each voice's stretch, loss law, initial amplitudes and pickup
+weights follow its place (string and fret: :mod:`.places`); under the open rule every
+voice shares the sound's.
 """
 
 from __future__ import annotations
@@ -27,7 +31,8 @@ from typing import Any
 import numpy as np
 
 from rtvoice.engine.bookkeeping import SlotMarks
-from rtvoice.engine.changes import VoiceChange
+from rtvoice.engine.changes import Excitation, VoiceChange
+from rtvoice.engine.instrument import MAX_PLACES, Instrument
 from rtvoice.engine.live_modes import LiveProduct, WeightSet
 from rtvoice.engine.midi import ChannelState
 from rtvoice.engine.modal_filter import ModalFilter
@@ -36,6 +41,7 @@ from rtvoice.engine.note_tables import NoteTables
 from rtvoice.engine.notes import harmonic_stretch, initial_amplitudes, velocity_gain
 from rtvoice.engine.output import OUTPUT_SCALE
 from rtvoice.engine.pickup_sums import PickupSums
+from rtvoice.engine.places import PlaceModel
 from rtvoice.engine.settings import Settings
 from rtvoice.engine.voices import VoicePool, as_run
 from rtvoice.physics.damping import decay_rate_per_s, loss_coefficients
@@ -69,6 +75,8 @@ class VoiceRenderer:
         self.swept = False  # a tiny-mode sweep ran: the live prefixes may have shrunk
         self.filter: ModalFilter  # output scale, coil filter and DC blocker, on the modes: prepare_electronics
         self._has_filter = False
+        self.instrument = Instrument.from_settings(settings)
+        self._pickups: Sequence[Mapping[str, Any]] = settings.pickups
 
     # -- set-up -------------------------------------------------------------------
     def build(self, voices: int, modes: int, pickups: Sequence[Mapping[str, Any]]) -> None:
@@ -94,7 +102,8 @@ class VoiceRenderer:
         self._views: dict[int, tuple[np.ndarray, np.ndarray]] = {}  # (s, p_block) by number of active voices
         self._pickup_sums = PickupSums(modes)
         self.tables = NoteTables(self.pool, 3 * slots)  # room for each slot's note held, released and faded
-        self.starts = NoteStarts(modes, self.fs)
+        self.starts = NoteStarts(modes, self.fs, places=MAX_PLACES)
+        self.places = PlaceModel(modes)
 
     def prepare_notes(self) -> None:
         """What the next note-on is made of: stretch, loss law, release, initial amplitudes."""
@@ -103,7 +112,8 @@ class VoiceRenderer:
         self.b1, self.b3 = loss_coefficients(s.get("string.t60_low"), s.get("string.t60_high"))
         self.release_t60_s = s.get("string.release")
         self.initial = initial_amplitudes(s, self.pool.modes)
-        self._weight_abs: np.ndarray | None = None  # see start_bound
+        self.instrument = Instrument.from_settings(s)
+        self.places.prepare(s, self.instrument, self.initial, self.stretch)
         self.tables.clear()  # frequencies and decay rates may have changed
 
     def prepare_electronics(self) -> None:
@@ -129,18 +139,17 @@ class VoiceRenderer:
     def prepare_pickups(self, pickups: Sequence[Mapping[str, Any]]) -> None:
         """The pickups' weight per mode, summed (displacement and velocity sensing apart)."""
         self._disp, self._vel = self._pickup_sums.update(pickups)
-        self._weight_abs = None  # see start_bound
+        self._pickups = pickups
+        self.places.forget_pickups(self._disp, self._vel)
+        n = self.pool.n_active
+        if self.instrument.fretted and n:  # every fretted voice sees the pickups at its own place
+            pool = self.pool
+            pool.pickup_disp[:n], pool.pickup_vel[:n] = self.places.pickup_rows(pool.place[:n], pickups)
 
-    def start_bound(self, velocity: int, initial: np.ndarray | None) -> float:
-        """The level bound a note-on will have, before its voice is set up (for stealing).
-
-        |g| ~ |disp + i (w_k / w_1) vel| for each mode: the pickup weight without the
-        small damping term of the velocity factor.
-        """
-        if self._weight_abs is None:
-            self._weight_abs = np.abs(self._disp + 1j * self.stretch * self._vel)
-        amps = self.initial if initial is None else initial
-        return velocity_gain(velocity) * float(np.abs(amps) @ self._weight_abs)
+    def start_bound(self, velocity: int, place: int, excitation: Excitation | None) -> float:
+        """The level bound a note-on will have, before its voice is set up (for stealing)."""
+        amps = self.places.initial_for(place, excitation)
+        return velocity_gain(velocity) * float(np.abs(amps) @ self.places.weight_abs(place, self._pickups))
 
     # -- weights ------------------------------------------------------------------
     def ramp_weights(self, n: int) -> None:
@@ -150,8 +159,13 @@ class VoiceRenderer:
         (see :meth:`VoicePool.update_tables_at`).
         """
         w = self.g_next[:n]
-        np.multiply(self.pool.deriv[:n], self._vel, out=w)
-        w += self._disp
+        pool = self.pool
+        if self.instrument.fretted:
+            np.multiply(pool.deriv[:n], pool.pickup_vel[:n], out=w)
+            w += pool.pickup_disp[:n]
+        else:
+            np.multiply(pool.deriv[:n], self._vel, out=w)
+            w += self._disp
         np.multiply(w, self.pool.h[:n], out=self.gf_next[:n])
 
     def set_weights(self, idx: slice | np.ndarray) -> None:
@@ -160,7 +174,11 @@ class VoiceRenderer:
         Their product weights follow when their tables are rebuilt (:meth:`flush_tables`).
         """
         idx = as_run(idx)
-        g = self.pool.deriv[idx] * self._vel + self._disp
+        pool = self.pool
+        if self.instrument.fretted:
+            g = pool.deriv[idx] * pool.pickup_vel[idx] + pool.pickup_disp[idx]
+        else:
+            g = pool.deriv[idx] * self._vel + self._disp
         self.pool.g[idx] = g
         self.g_next[idx] = g
 
@@ -190,18 +208,26 @@ class VoiceRenderer:
         pool = self.pool
         idx = np.array([c.slot for c in starts])
         slots = as_run(idx)
-        notes = [c.start.note for c in starts if c.start is not None]
+        notes = [c.start for c in starts if c.start is not None]
+        places = [c.place for c in notes]
         a4_hz = self.settings.get("tuning.a4_hz")
-        rows: slice | np.ndarray = self.starts.rows(notes, self.tables.epoch,
-                                 lambda notes: midi_note_to_hz(notes, a4_hz)[:, None] * self.stretch,
-                                 lambda freqs: decay_rate_per_s(freqs, self.b1, self.b3))
+        fretted = self.instrument.fretted
+        if fretted:
+            rows: slice | np.ndarray = self.starts.rows(
+                places, self.tables.epoch, lambda places: self.places.frequencies_hz(places, a4_hz),
+                self.places.decay_rates)
+        else:  # a place is a MIDI note
+            rows = self.starts.rows(places, self.tables.epoch,
+                                    lambda notes: midi_note_to_hz(notes, a4_hz)[:, None] * self.stretch,
+                                    lambda _, freqs: decay_rate_per_s(freqs, self.b1, self.b3))
         rows = as_run(rows)  # one note: views, not gathers
         kept = self.starts
-        velocity = np.array([c.start.velocity for c in starts if c.start is not None], float)
+        velocity = np.array([c.velocity for c in notes], float)
         amp = velocity_gain(velocity)  # square-law velocity curve (common practice)
-        given = [c.start.initial for c in starts if c.start is not None]
-        initial = self.initial if all(i is None for i in given) else np.stack(
-            [self.initial if i is None else i for i in given])
+        if not fretted and all(c.excitation is None for c in notes):
+            initial = self.initial
+        else:
+            initial = np.stack([self.places.initial_for(c.place, c.excitation) for c in notes])
         s = amp[:, None] * initial
         s *= kept.plucked[rows]  # no amplitude above the Nyquist margin
         pool.s[slots] = s
@@ -209,7 +235,9 @@ class VoiceRenderer:
         sigma = kept.sigma[rows]
         pool.sigma_hold[slots] = sigma
         pool.sigma[slots] = sigma
-        bend = np.array([channels.voice_bend(c.start.channel) for c in starts if c.start is not None])
+        if fretted:
+            pool.pickup_disp[slots], pool.pickup_vel[slots] = self.places.pickup_rows(pool.place[slots], self._pickups)
+        bend = np.array([channels.voice_bend(c.channel) for c in notes])
         if bend.any():
             self.set_bends(idx, bend)
         else:  # the kept rows of the unbent note (what set_bends would work out)
@@ -336,7 +364,7 @@ class VoiceRenderer:
         if marked:
             pool = self.pool
             idx = np.array(marked)
-            keys = [(int(pool.note[v]), int(pool.decay[v]), int(pool.epoch[v])) if pool.bend[v] == 0.0 else None
+            keys = [(int(pool.place[v]), int(pool.decay[v]), int(pool.epoch[v])) if pool.bend[v] == 0.0 else None
                     for v in idx]
             entries = self.tables.find(keys)
             kept = entries >= 0

@@ -103,11 +103,14 @@ class VoicePool:
         # A_rows[v, m] = [Re A[v, m, :], -Im A[v, m, :]]; B_t[j, v, m] = B[v, m, j].
         self.A_rows = np.zeros((slots, modes, 2, self.n1), np.float32)
         self.B_t = np.zeros((self.n2 + 1, slots, modes), np.complex64)
+        self.pickup_disp = np.zeros(shape)  # a fretted voice's own pickup sums (see engine.places), displacement
+        self.pickup_vel = np.zeros(shape)  # ... and velocity sensing
         self.deriv = np.zeros(shape, complex)  # (-sigma_hold + i omega) / omega1: velocity pickup factor
         self.audible = np.zeros(shape)  # 1.0 for modes below the Nyquist margin, else 0.0
         # Per-slot facts.
         self.state = np.zeros(slots, np.int8)
         self.note = np.zeros(slots, np.int16)
+        self.place = np.zeros(slots, np.int16)  # where it sounds: its note, or its string and fret (see instrument)
         self.velocity = np.zeros(slots, np.int16)  # note-on velocity 1..127
         self.channel = np.zeros(slots, np.int8)
         self.order = np.zeros(slots, np.int64)  # start order, for stealing ties
@@ -121,7 +124,7 @@ class VoicePool:
         # audio callback) takes no page faults.
         for arr in (self.s, self.g, self.h, self.gf, self.r, self.sigma, self.sigma_hold, self.omega_base, self.omega,
                     self.p, self.p_block, self.p_block64, self.logp, self.A_rows, self.B_t, self.deriv,
-                    self.audible):
+                    self.audible, self.pickup_disp, self.pickup_vel):
             arr.fill(0.0)
         self.n_active = 0
 
@@ -190,9 +193,9 @@ class VoicePool:
         if v != last:
             for arr in (self.s, self.g, self.h, self.gf, self.r, self.sigma, self.sigma_hold, self.omega_base,
                         self.omega, self.p, self.p_block, self.p_block64, self.logp, self.A_rows, self.deriv,
-                        self.audible,
-                        self.state, self.note, self.channel, self.order, self.fade_since, self.omega1, self.bend,
-                        self.velocity, self.decay, self.epoch, self.level):
+                        self.pickup_disp, self.pickup_vel, self.audible,
+                        self.state, self.note, self.place, self.channel, self.order, self.fade_since, self.omega1,
+                        self.bend, self.velocity, self.decay, self.epoch, self.level):
                 arr[v] = arr[last]
             self.B_t[:, v] = self.B_t[:, last]
             moved = last

@@ -1,4 +1,5 @@
-"""Shared memory for what the UI shows: meters, mode levels, output spectrum.
+"""Shared memory for what the UI shows: meters, mode levels, output spectrum, and on a fretted
+instrument where the loudest voice and every string sound.
 
 The engine process writes, the UI process reads; neither waits for the other.
 A sequence counter (a seqlock) makes the reader's copy consistent: the writer
@@ -13,15 +14,23 @@ from multiprocessing import shared_memory
 
 import numpy as np
 
+from rtvoice.engine import MAX_STRINGS
+
 MAX_MODES = 128
 SPECTRUM_BINS = 1024
 SILENT_DB = -120.0
 
+#: Per string (string 1 first, room for the most strings an instrument has): the fret its sounding
+#: voice plays (-1: silent) and that voice's level bound in dB re full scale (SILENT_DB when silent).
+STRING_FRET_FIELDS = tuple(f"string_{n}_fret" for n in range(1, MAX_STRINGS + 1))
+STRING_LEVEL_FIELDS = tuple(f"string_{n}_level_db" for n in range(1, MAX_STRINGS + 1))
 # Scalar fields, in order, after the sequence counter.
-FIELDS = (
+FIELDS: tuple[str, ...] = (
     "voices", "load_median", "load_p99", "xruns", "peak_dbfs", "gain_reduction_db",
     "midi_events", "note", "f0_hz", "n_modes", "spectrum_bin_hz", "heartbeat_s", "blocks",
     "sample_rate_hz", "block_frames", "velocity", "notes_dropped", "late",
+    "string", "fret",  # the loudest voice's string (1 = highest) and fret; 0 and -1 under the open rule
+    *STRING_FRET_FIELDS, *STRING_LEVEL_FIELDS,
 )
 _N_FIELDS = len(FIELDS)
 _OFFSETS = {"fields": 8}
@@ -114,5 +123,7 @@ class Board:
 def _initial_state() -> tuple[dict, np.ndarray, np.ndarray, np.ndarray]:
     """What the board holds before the engine's first update: silence, no note."""
     fields = dict.fromkeys(FIELDS, 0.0)
-    fields.update(note=-1.0, peak_dbfs=SILENT_DB)
+    fields.update(note=-1.0, peak_dbfs=SILENT_DB, fret=-1.0)
+    fields.update(dict.fromkeys(STRING_FRET_FIELDS, -1.0))
+    fields.update(dict.fromkeys(STRING_LEVEL_FIELDS, SILENT_DB))
     return fields, np.full(MAX_MODES, SILENT_DB), np.zeros(MAX_MODES), np.full(SPECTRUM_BINS, SILENT_DB)

@@ -22,7 +22,7 @@ import numpy as np
 
 from rtvoice.engine import Settings, SettingsError, check_entries
 from rtvoice.host import messages as msgs
-from rtvoice.host.board import SILENT_DB, SPECTRUM_BINS, Board
+from rtvoice.host.board import SILENT_DB, SPECTRUM_BINS, STRING_FRET_FIELDS, STRING_LEVEL_FIELDS, Board
 from rtvoice.host.errors import MidiMessageError
 from rtvoice.host.link_process import LinkProcess, receive
 from rtvoice.host.options import parse_mpe
@@ -47,6 +47,10 @@ class Snapshot:
     note: int = -1  # MIDI note of the loudest voice, -1 for none
     velocity: int = 0  # its note-on velocity, 0 for none
     f0_hz: float = 0.0
+    string: int = 0  # where the loudest voice sounds on a fretted instrument (1 = highest); 0 under the open rule
+    fret: int = -1
+    string_frets: tuple[int, ...] = ()  # per string (string 1 first): the fret sounding, -1 when silent
+    string_levels_db: tuple[float, ...] = ()  # ... and its level, dB re full scale
     mode_levels_db: np.ndarray = field(default_factory=lambda: np.zeros(0))
     mode_freqs_hz: np.ndarray = field(default_factory=lambda: np.zeros(0))
     spectrum_db: np.ndarray = field(default_factory=lambda: np.full(SPECTRUM_BINS, SILENT_DB))
@@ -178,6 +182,9 @@ class EngineLink(LinkProcess):
             gain_reduction_db=fields["gain_reduction_db"], midi_events=int(fields["midi_events"]),
             notes_dropped=int(fields["notes_dropped"]),
             note=int(fields["note"]), velocity=int(fields["velocity"]), f0_hz=fields["f0_hz"],
+            string=int(fields["string"]), fret=int(fields["fret"]),
+            string_frets=tuple(int(fields[name]) for name in STRING_FRET_FIELDS),
+            string_levels_db=tuple(float(fields[name]) for name in STRING_LEVEL_FIELDS),
             mode_levels_db=levels[:n],
             mode_freqs_hz=freqs[:n], spectrum_db=spec, spectrum_bin_hz=fields["spectrum_bin_hz"],
             audio_port=self._audio_port, midi_ports=list(self._midi_ports), engine_alive=alive,

@@ -1,4 +1,5 @@
-"""Meters of the engine process: callback load, the loudest voice's modes, the output spectrum.
+"""Meters of the engine process: callback load, the loudest voice's modes (and on a fretted
+instrument its string and fret, and the fret and level of every sounding string), the output spectrum.
 
 The callback side (``add``, ``stage``) writes into preallocated arrays only; the
 main thread reads them at its own pace and publishes to the shared board.
@@ -11,8 +12,15 @@ from typing import TypedDict
 
 import numpy as np
 
-from rtvoice.engine import Engine, VoiceReadout, loudest_voice_into
-from rtvoice.host.board import MAX_MODES, SILENT_DB, SPECTRUM_BINS, Board
+from rtvoice.engine import MAX_STRINGS, Engine, VoiceReadout, loudest_voice_into, sounding_places_into
+from rtvoice.host.board import (
+    MAX_MODES,
+    SILENT_DB,
+    SPECTRUM_BINS,
+    STRING_FRET_FIELDS,
+    STRING_LEVEL_FIELDS,
+    Board,
+)
 from rtvoice.host.ring import SampleRing
 
 LOAD_WINDOW_S = 5.0  # the live meter's median and p99 cover this much of the recent past
@@ -66,7 +74,10 @@ class CallbackMeter:
 
 class StagedVoice(TypedDict):
     """One half of :class:`VoiceStage`: |g s| in output units and frequency in Hz of the loudest
-    voice's first ``n`` modes, its note and velocity, and how many voices sound."""
+    voice's first ``n`` modes, its note and velocity, and how many voices sound; on a fretted
+    instrument its ``string`` and ``fret`` (0 and -1 under the open rule), and per string (string 1
+    first) the fret sounding there (``string_frets``, -1: silent) and that voice's level bound in
+    output units (``string_levels``)."""
 
     levels: np.ndarray
     freqs: np.ndarray
@@ -74,6 +85,10 @@ class StagedVoice(TypedDict):
     note: int
     velocity: int
     voices: int
+    string: int
+    fret: int
+    string_frets: np.ndarray
+    string_levels: np.ndarray
 
 
 class VoiceStage:
@@ -82,17 +97,23 @@ class VoiceStage:
     def __init__(self) -> None:
         self._halves: list[StagedVoice] = [
             {"levels": np.zeros(MAX_MODES), "freqs": np.zeros(MAX_MODES), "n": 0, "note": -1, "velocity": 0,
-             "voices": 0} for _ in range(2)]
+             "voices": 0, "string": 0, "fret": -1, "string_frets": np.full(MAX_STRINGS, -1, np.int64),
+             "string_levels": np.zeros(MAX_STRINGS)} for _ in range(2)]
         self._ready = 0
         self._work = np.zeros(MAX_MODES, complex)  # scratch for the engine's read-out
         self._readout = VoiceReadout()
 
     def stage(self, engine: Engine, host_gain: float) -> None:
-        """Copy the loudest voice's |g s| per mode in output units (callback side)."""
+        """Copy the loudest voice's |g s| per mode in output units, and where the strings sound
+        (callback side: into the halves' own arrays, nothing allocated)."""
         half = self._halves[1 - self._ready]
         gain = 10 ** (engine.settings.get("output.gain_db") / 20) * host_gain
         r = loudest_voice_into(engine, half["levels"], half["freqs"], self._work, gain, self._readout)
         half["n"], half["note"], half["velocity"], half["voices"] = r.modes, r.note, r.velocity, r.voices
+        half["string"], half["fret"] = r.string, r.fret
+        levels = half["string_levels"]
+        sounding_places_into(engine, half["string_frets"], levels)
+        np.multiply(levels, gain, out=levels)  # in output units, as the mode levels are
         self._ready = 1 - self._ready
 
     def current(self) -> StagedVoice:
@@ -130,6 +151,13 @@ class Publisher:
             board.put("n_modes", min(n_modes, MAX_MODES))
             board.put("spectrum_bin_hz", self.rate / SPECTRUM_FRAMES)
             board.put("sample_rate_hz", self.rate)
+            board.put("string", stage["string"])
+            board.put("fret", stage["fret"])
+            frets = stage["string_frets"]
+            string_db = 20 * np.log10(np.maximum(stage["string_levels"], FLOOR))
+            for i, (fret_name, level_name) in enumerate(zip(STRING_FRET_FIELDS, STRING_LEVEL_FIELDS, strict=True)):
+                board.put(fret_name, int(frets[i]))
+                board.put(level_name, float(string_db[i]) if frets[i] >= 0 else SILENT_DB)
             board.mode_levels_db[:] = levels
             board.mode_freqs_hz[:] = stage["freqs"] if n else 0.0
             board.spectrum_db[:] = spectrum_db

@@ -3,15 +3,34 @@
 from __future__ import annotations
 
 import sys
+from collections import Counter
 from collections.abc import Callable, Iterator, Sequence
+from dataclasses import dataclass, field
 
 import numpy as np
 
-from rtvoice.engine import Engine, Settings, active_voices
+from rtvoice.engine import Engine, Placement, Settings, active_voices, take_placements
 
 DEFAULT_TAIL_CAP_S = 30.0
 DEFAULT_RENDER_BLOCK = 2048  # frames per block offline: nobody waits for a file, so fewer, larger blocks
 PROGRESS_ABOVE_S = 5.0  # a render longer than this shows a progress bar on a terminal
+
+
+@dataclass
+class PlayReport:
+    """What a render played: where each note sounded (string and fret; string 0 under the open rule)
+    and how many note-ons no string could play."""
+
+    placements: list[Placement] = field(default_factory=list)
+    unplayable: int = 0
+
+    def summary(self) -> list[tuple[Placement, int]]:
+        """Each distinct (note, string, fret) with how often it started, in order of first use."""
+        counts = Counter((p.note, p.string, p.fret) for p in self.placements)
+        first: dict[tuple[int, int, int], Placement] = {}
+        for p in self.placements:
+            first.setdefault((p.note, p.string, p.fret), p)
+        return [(p, counts[key]) for key, p in first.items()]
 
 
 def note_events(note: int, velocity: int, seconds: float, channel: int = 0) -> list[tuple[float, int, int, int]]:
@@ -33,8 +52,11 @@ def iter_blocks(
     block_frames: int = 256,
     tail_cap_s: float = DEFAULT_TAIL_CAP_S,
     progress: Callable[[float], None] | None = None,
+    report: PlayReport | None = None,
 ) -> Iterator[np.ndarray]:
     """Blocks of ``events`` (time_s, status, data1, data2) played through a new engine.
+
+    ``report``, when given, collects where each note sounded and how many could not be played.
 
     Each event lands on its own sample: the engine's fixed output delay (its limiter's
     look-ahead) is taken off the front and rendered on at the end, so a file does not
@@ -60,6 +82,9 @@ def iter_blocks(
             batch.append((int(stamps[i] - start), status, d1, d2))
             i += 1
         out = engine.render(batch)
+        if report is not None and batch:
+            report.placements += take_placements(engine)
+            report.unplayable = engine.stats.unplayable
         if skip:
             taken = min(skip, out.size)
             skip -= taken

@@ -45,10 +45,11 @@ MEASURABLE = 1e-20
 HELD_NOTE = 45  # A2, 110 Hz: every mode of 96 lies below the Nyquist margin
 HELD_VELOCITY = 127
 #: The sound of the held note: long T60s (the schema's longest is 60 s) so it stays far above
-#: the retire level for a whole segment, a plain pluck so the closed form applies.
-HOLD_VALUES = {"string.t60_low": 60.0, "string.t60_high": 40.0, "string.inharmonicity": 1e-4,
-               "tuning.a4_hz": 440.0, "excitation.kind": "pluck", "excitation.position": 0.2,
-               "excitation.width": 0.01, "excitation.shape": ()}
+#: the retire level for a whole segment, a plain pluck so the closed form applies, and each note an
+#: open string of its own (a fretted preset's string would have its own stiffness and loss).
+HOLD_VALUES = {"instrument.assign": "open", "string.t60_low": 60.0, "string.t60_high": 40.0,
+               "string.inharmonicity": 1e-4, "tuning.a4_hz": 440.0, "excitation.kind": "pluck",
+               "excitation.position": 0.2, "excitation.width": 0.01, "excitation.shape": ()}
 
 
 def drift_tolerance(omega: np.ndarray, t_s: float, blocks: int) -> np.ndarray:

@@ -45,7 +45,8 @@ def _db_ratio(num: np.ndarray, den: np.ndarray | float) -> np.ndarray:
 def describe(
     energy: np.ndarray, freqs_hz: np.ndarray, missing_below_db: float = DEFAULT_MISSING_BELOW_DB
 ) -> Descriptors:
-    """Descriptors of ``energy`` (..., n_harmonics): harmonic k = 1.. last, at ``freqs_hz``.
+    """Descriptors of ``energy`` (..., n_harmonics): harmonic k = 1.. last, at ``freqs_hz`` (one row
+    for every point, or one row per point, shaped like ``energy``).
 
     centroid = sum f_k E_k / sum E_k; odd/even = 10 log10(sum of odd-k E / sum of even-k E)
     (+inf when no even harmonic sounds); a harmonic is missing when its energy is
@@ -58,11 +59,12 @@ def describe(
     freqs = np.asarray(freqs_hz, dtype=float)
     total = energy.sum(axis=-1)
     with np.errstate(divide="ignore", invalid="ignore"):
-        centroid = (energy @ freqs) / total
+        # One note's modes (1-D) or each point's own (the neck map: freqs shaped like energy).
+        centroid = (energy @ freqs if freqs.ndim == 1 else np.sum(energy * freqs, axis=-1)) / total
     odd = energy[..., 0::2].sum(axis=-1)
     even = energy[..., 1::2].sum(axis=-1)
     floor = strongest * 10.0 ** (-missing_below_db / 10.0)
-    return Descriptors(centroid, centroid / freqs[0], _db_ratio(odd, even), total, energy < floor)
+    return Descriptors(centroid, centroid / freqs[..., 0], _db_ratio(odd, even), total, energy < floor)
 
 
 def level_db(total_energy: np.ndarray, reference_energy: float) -> np.ndarray:

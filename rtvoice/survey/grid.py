@@ -16,6 +16,7 @@ from rtvoice.engine import Settings
 from rtvoice.survey.descriptors import DEFAULT_MISSING_BELOW_DB, describe, level_db, window_factor
 from rtvoice.survey.inputs import Placement, SurveyError, check_length
 from rtvoice.survey.model import SENSINGS, EngineModel, NoteModes
+from rtvoice.survey.placing import NotePlace, check_placement, places_for
 from rtvoice.survey.result import DESCRIPTOR_FIELDS, SurveyPlane, SurveyResult
 
 DEFAULT_WINDOW_S = 1.0
@@ -56,6 +57,8 @@ def survey(
     reference_sensing: str | None = None,
     missing_below_db: float = DEFAULT_MISSING_BELOW_DB,
     progress: Callable[[float], None] | None = None,
+    places: Sequence[NotePlace] | None = None,
+    past_last_fret: bool = False,
 ) -> SurveyResult:
     """Descriptors for every combination of note, sensing, pickup width, pluck and pickup position.
 
@@ -64,6 +67,14 @@ def survey(
     grids take the settings' own value. ``level_db`` is relative to ``reference``
     (default: the settings' own placement and sensing) for the same note.
     ``window_s`` is the listening window from the attack. Raises SurveyError for bad input.
+
+    On a fretted instrument (``instrument.assign`` hand or channel) each note sounds where
+    the settings' rule puts a lone note-on on channel 1, or at ``places`` (one per note,
+    :func:`rtvoice.survey.placing.place_at`); positions and widths are then fractions of the
+    open scale, fixed on the body, and must lie between the saddle and the last fret, as the
+    settings require. With ``past_last_fret`` (the UI's map) they may lie over the neck, where
+    the settings refuse a pickup or the pluck, as long as they fall on every note's speaking
+    length: the map then carries the engine's formulas past what it plays.
     """
     ax = _Axes.checked(
         settings,
@@ -76,6 +87,8 @@ def survey(
         window_s,
         reference,
         reference_sensing,
+        places,
+        past_last_fret,
     )
     model = EngineModel(settings, sample_rate_hz, pickup_index)
     init_sq = np.abs(model.initial_amplitudes(ax.plucks)) ** 2
@@ -86,7 +99,10 @@ def survey(
     steps, done = len(ax.notes) * len(ax.sensings) * ax.widths.size, 0
     chunk = max(1, _CHUNK_ELEMENTS // (ax.plucks.size * model.n_modes))
     for i_n, note in enumerate(ax.notes):
-        modes = model.note_modes(note)
+        modes = model.note_modes(note, ax.places[i_n])
+        if modes.placed is not None:  # the pluck falls elsewhere on every fretted note
+            init_sq = np.abs(model.initial_amplitudes(ax.plucks, modes)) ** 2
+            ref_init_sq = np.abs(model.initial_amplitudes([ax.reference.pluck], modes)[0]) ** 2
         f1[i_n], counts[i_n] = modes.f1_hz, modes.count
         bare = modes.chain_gain**2 * window_factor(modes.sigma_per_s, window_s)
         full = bare * modes.electronics_gain**2
@@ -119,6 +135,7 @@ def survey(
         sample_rate_hz=float(sample_rate_hz),
         missing_below_db=float(missing_below_db),
         missing=missing,
+        places=ax.places,
         **out,
     )
 
@@ -134,6 +151,7 @@ class _Axes:
     pickups: np.ndarray
     reference: Placement
     reference_sensing: str
+    places: tuple[NotePlace, ...]
 
     @property
     def shape(self) -> tuple[int, ...]:
@@ -141,7 +159,8 @@ class _Axes:
 
     @classmethod
     def checked(
-        cls, settings, notes, pickups, plucks, widths, sensings, pickup_index, window_s, reference, reference_sensing
+        cls, settings, notes, pickups, plucks, widths, sensings, pickup_index, window_s, reference, reference_sensing,
+        places, past_last_fret,
     ) -> _Axes:
         scale_mm = float(settings.get("string.scale_length_mm"))
         if not 0 <= pickup_index < len(settings.pickups):
@@ -174,6 +193,10 @@ class _Axes:
         reference = reference or own
         for kind in ("pickup", "pluck", "width"):
             check_length(getattr(reference, kind), kind, scale_mm, "--reference", str(reference))
+        if places is None:
+            places = places_for(settings, notes)
+        elif len(places) != len(notes) or any(p.note != n for p, n in zip(places, notes, strict=False)):
+            raise SurveyError("places", len(places), "give one place per note, for the same notes")
         axes = cls(
             notes,
             sensings,
@@ -182,13 +205,53 @@ class _Axes:
             _as_grid(pickups, "pickup", scale_mm, "--pickup"),
             reference,
             reference_sensing,
+            tuple(places),
         )
         total = int(np.prod(axes.shape))
         if total > MAX_POINTS:
             raise SurveyError(
                 "grid", " x ".join(map(str, axes.shape)), f"{total} points; a survey computes at most {MAX_POINTS}"
             )
+        if any(p.fretted for p in axes.places):
+            if past_last_fret:
+                axes.check_on_notes(settings, pickup_index)
+            else:
+                axes.check_on_body(settings, pickup_index)
         return axes
+
+    def check_on_notes(self, settings: Settings, pickup_index: int) -> None:
+        """SurveyError unless the surveyed pickup's (slanted) ends and the pluck lie on every fretted
+        note's speaking length (a fraction of the open scale below 2^(-fret/12))."""
+        slant = abs(float(settings.pickups[pickup_index].get("slant", 0.0))) / 2
+        ref = self.reference
+        for place in self.places:
+            if place.placed is None:
+                continue
+            length = 1.0 / place.placed.scale
+            for name, far in (("--pickup", float(self.pickups.max()) + slant), ("--pluck", float(self.plucks.max())),
+                              ("--reference", max(ref.pickup + slant, ref.pluck))):
+                if far >= length:
+                    raise SurveyError(name, f"{far:.4g}", f"lies past the end of note {place.note} at string "
+                                      f"{place.string}, fret {place.fret} ({length:.4g} of the open scale)")
+
+    def check_on_body(self, settings: Settings, pickup_index: int) -> None:
+        """SurveyError unless the settings take every grid's ends and the reference (the pluck and
+        the pickups fixed on the body, between the saddle and the last fret)."""
+        key = f"pickup.{pickup_index}"
+        for name, grid, param in (
+            ("--pickup", self.pickups, f"{key}.position"),
+            ("--pluck", self.plucks, "excitation.position"),
+            ("--width", self.widths, f"{key}.width"),
+        ):
+            for value in (float(grid.min()), float(grid.max())):
+                check_placement(settings, {param: value}, name, f"{grid[0]:g} .. {grid[-1]:g}")
+        ref = self.reference
+        check_placement(
+            settings,
+            {f"{key}.position": ref.pickup, "excitation.position": ref.pluck, f"{key}.width": ref.width},
+            "--reference",
+            str(ref),
+        )
 
 
 @dataclass(frozen=True)
@@ -234,10 +297,13 @@ def survey_grid(
     sample_rate_hz: float = 48000.0,
     reference: Placement | None = None,
     missing_below_db: float = DEFAULT_MISSING_BELOW_DB,
+    past_last_fret: bool = True,
 ) -> SurveyPlane:
     """One plane of descriptors, pluck (rows) x pickup (columns), for the UI's map.
 
-    Pure: no I/O, the settings are not changed. Positions are fractions from the bridge.
+    Pure: no I/O, the settings are not changed. Positions are fractions from the bridge (of the
+    open scale on a fretted instrument, where by default the map may reach over the neck as far as
+    the note's speaking length: see :func:`survey`).
     """
     result = survey(
         settings,
@@ -251,6 +317,7 @@ def survey_grid(
         sample_rate_hz=sample_rate_hz,
         reference=reference,
         missing_below_db=missing_below_db,
+        past_last_fret=past_last_fret,
     )
     return result.plane()
 
@@ -264,15 +331,22 @@ def placement_energies(
     pickup_index: int = 0,
     window_s: float = DEFAULT_WINDOW_S,
     sample_rate_hz: float = 48000.0,
+    place: NotePlace | None = None,
 ) -> tuple[NoteModes, np.ndarray]:
-    """(modes, each harmonic's energy over the window: shape (n_placements, modes.count))."""
+    """(modes, each harmonic's energy over the window: shape (n_placements, modes.count)).
+
+    ``place``: where the note sounds (default: where the settings' rule puts it)."""
     model = EngineModel(settings, sample_rate_hz, pickup_index)
     sensing = sensing or settings.pickups[pickup_index]["sensing"]
-    modes = model.note_modes(note)
+    modes = model.note_modes(note, place or places_for(settings, [note])[0])
     full = modes.chain_gain**2 * modes.electronics_gain**2 * window_factor(modes.sigma_per_s, window_s)
     rows = []
     for p in placements:
-        s_sq = np.abs(model.initial_amplitudes([p.pluck])[0, : modes.count]) ** 2
+        if modes.placed is not None:
+            key = f"pickup.{pickup_index}"
+            check_placement(settings, {f"{key}.position": p.pickup, "excitation.position": p.pluck,
+                                       f"{key}.width": p.width}, "--compare", str(p))
+        s_sq = np.abs(model.initial_amplitudes([p.pluck], modes)[0, : modes.count]) ** 2
         g_sq = np.abs(model.pickup_weights(modes, [p.pickup], p.width, sensing)[0]) ** 2
         rows.append(s_sq * g_sq * full)
     return modes, np.array(rows)

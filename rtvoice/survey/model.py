@@ -5,23 +5,37 @@ stage, with s_k the initial complex amplitude and g_k the pickup weight. Its
 amplitude in the output is |g_k s_k| times the gain of the output stage at f_k
 (OUTPUT_SCALE, the electronics filter, the output gain, the DC blocker). Every
 piece comes from the engine or the physics package, so the survey hears what the
-engine plays.
+engine plays. A note at a string and fret (a fretted instrument) takes its frequencies,
+decay rates and initial amplitudes from the engine's note description
+(:func:`rtvoice.engine.note_model_at`) and sees each pickup where the engine puts it
+(:meth:`rtvoice.engine.PlacedNote.pickup_on_note`: fixed on the body, slanted per string).
 """
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 import scipy.signal
 
-from rtvoice.engine import OUTPUT_SCALE, Settings, dc_blocker, electronics_filter, initial_amplitudes, resonance_of
+from rtvoice.engine import (
+    OUTPUT_SCALE,
+    PlacedNote,
+    Settings,
+    dc_blocker,
+    electronics_filter,
+    initial_amplitudes,
+    note_model_at,
+    resonance_of,
+)
 from rtvoice.physics.damping import decay_rate_per_s, loss_coefficients
 from rtvoice.physics.modes import mode_frequencies_hz, playable_mode_count
 from rtvoice.physics.pickup import pickup_weights
 from rtvoice.physics.tuning import midi_note_to_hz
 from rtvoice.survey.inputs import SurveyError
+from rtvoice.survey.placing import NotePlace
 
 SENSINGS = ("velocity", "displacement")
 
@@ -35,6 +49,7 @@ class NoteModes:
     sigma_per_s: np.ndarray  # decay rate while the note is held
     electronics_gain: np.ndarray  # |H(f_k)| of the coil-and-cable filter (1 when bypassed)
     chain_gain: np.ndarray  # OUTPUT_SCALE x output gain x |DC blocker(f_k)|
+    placed: PlacedNote | None = None  # the string and fret on a fretted instrument (None: an open string of its own)
 
     @property
     def count(self) -> int:
@@ -81,7 +96,17 @@ class EngineModel:
         filters = [f for f in (self._electronics, self._dc) if f is not None]
         return np.concatenate([np.roots(f.a) for f in filters]).astype(complex)
 
-    def note_modes(self, note: int) -> NoteModes:
+    def output_gains(self, freqs_hz: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """(electronics gain, chain gain) at ``freqs_hz`` of any shape, as :class:`NoteModes` holds them."""
+        flat = np.asarray(freqs_hz, dtype=float).ravel()
+        electronics = _response(self._electronics, flat, self.fs).reshape(np.shape(freqs_hz))
+        chain = self._gain * _response(self._dc, flat, self.fs).reshape(np.shape(freqs_hz))
+        return electronics, chain
+
+    def note_modes(self, note: int, place: NotePlace | None = None) -> NoteModes:
+        """The playable modes of ``note``; at ``place``'s string and fret when it is fretted."""
+        if place is not None and place.placed is not None:
+            return self._placed_modes(place.placed)
         s = self.settings
         f0 = midi_note_to_hz(note, s.get("tuning.a4_hz"))
         freqs = mode_frequencies_hz(f0, s.get("string.inharmonicity"), self.n_modes)
@@ -97,20 +122,51 @@ class EngineModel:
             self._gain * _response(self._dc, freqs, self.fs),
         )
 
-    def initial_amplitudes(self, pluck_positions: Sequence[float] | np.ndarray) -> np.ndarray:
+    def _placed_modes(self, placed: PlacedNote) -> NoteModes:
+        model = note_model_at(self.settings, placed.string, placed.fret, self.n_modes, self.fs)
+        count = model.playable
+        if count == 0:
+            raise SurveyError("--fret", placed.fret, f"no mode of string {placed.string} at this fret lies below "
+                              f"0.45 x {self.fs:g} Hz")
+        freqs = model.freqs_hz[:count]
+        electronics, chain = self.output_gains(freqs)
+        return NoteModes(placed.note, freqs, model.sigma_per_s[:count], electronics, chain, placed)
+
+    def initial_amplitudes(self, pluck_positions: Sequence[float] | np.ndarray,
+                           modes: NoteModes | None = None) -> np.ndarray:
         """Initial complex amplitudes s_k at full velocity, shape (n_pluck, string.modes).
 
         Formed where every note-on forms them (:func:`rtvoice.engine.initial_amplitudes`), so
-        a pluck, a strike or a shape gives exactly what a note-on would.
+        a pluck, a strike or a shape gives exactly what a note-on would. For a fretted note
+        (``modes.placed``) the pluck positions are fractions of the open scale, fixed on the
+        body, and the engine's note description at that string and fret forms them.
         """
         out = np.empty((len(pluck_positions), self.n_modes), complex)
+        placed = modes.placed if modes is not None else None
         for i, p in enumerate(pluck_positions):
-            out[i] = initial_amplitudes(self.settings, self.n_modes, position=float(p))
+            if placed is None:
+                out[i] = initial_amplitudes(self.settings, self.n_modes, position=float(p))
+            else:
+                out[i] = self._placed_initial(placed, float(p))
         return out
+
+    def _placed_initial(self, placed: PlacedNote, pluck: float) -> np.ndarray:
+        settings = self.settings
+        if pluck != settings.get("excitation.position"):
+            # The survey has checked the pluck against the neck (or chose to reach past the last
+            # fret); the open rule lets the settings hold it, and note_model_at places the note by
+            # string and fret whatever the rule.
+            settings = settings.with_values({"instrument.assign": "open", "excitation.position": pluck})
+        return note_model_at(settings, placed.string, placed.fret, self.n_modes, self.fs).initial
 
     def pickup_weights(self, modes: NoteModes, positions: Sequence[float] | np.ndarray, width: float,
                        sensing: str) -> np.ndarray:
-        """Complex pickup weights g_k of the summed pickups, shape (n_positions, modes.count)."""
+        """Complex pickup weights g_k of the summed pickups, shape (n_positions, modes.count).
+
+        For a fretted note (``modes.placed``) positions and widths are fractions of the open
+        scale, fixed on the body; each pickup lies where the engine puts it under the note's
+        string (its slant included) and covers the same width of string, a larger fraction.
+        """
         k = np.arange(1, modes.count + 1, dtype=float)
         omega = 2 * np.pi * modes.freqs_hz
         pickups = [dict(p) for p in self.settings.pickups]
@@ -122,5 +178,24 @@ class EngineModel:
                 "width": float(width),
                 "sensing": sensing,
             }
-            out[i] = pickup_weights(k, pickups, modes.sigma_per_s, omega, omega[0])
+            heard = pickups if modes.placed is None else [_on_note(p, modes.placed) for p in pickups]
+            out[i] = pickup_weights(k, heard, modes.sigma_per_s, omega, omega[0])
         return out
+
+    def heard_weights(self, placed: PlacedNote, freqs_hz: np.ndarray, sigma_per_s: np.ndarray) -> np.ndarray:
+        """Complex pickup weights g_k of the settings' own pickups for the note at ``placed`` (its modes at
+        ``freqs_hz``, decaying at ``sigma_per_s``): what a note-on at that string and fret gets."""
+        k = np.arange(1, freqs_hz.size + 1, dtype=float)
+        omega = 2 * np.pi * freqs_hz
+        heard = [_on_note(p, placed) for p in self.settings.pickups]
+        weights: np.ndarray = pickup_weights(k, heard, sigma_per_s, omega, omega[0])
+        return weights
+
+
+def _on_note(pickup: Mapping[str, Any], placed: PlacedNote) -> dict[str, Any]:
+    """A pickup as the note at ``placed`` senses it: centre and aperture as fractions of its speaking length."""
+    return {
+        **pickup,
+        "position": placed.pickup_on_note(pickup["position"], pickup.get("slant", 0.0)),
+        "width": placed.on_note(pickup["width"]),
+    }

@@ -68,6 +68,9 @@ def _panels(result: SurveyResult, y_axis: str | None):
     for i_n, i_s, i_w in itertools.product(dims[0][1], dims[1][1], widths):
         note, f1 = result.notes[i_n], result.f1_hz[i_n]
         parts = [f"note {note} ({f1:.1f} Hz)", result.sensings[i_s]]
+        place = result.place(i_n)
+        if place.fretted:
+            parts[0] += f" at string {place.string}, fret {place.fret}"
         if i_w is not None:
             w = result.widths[i_w]
             parts.append(f"width {w:.3g} ({w * result.scale_length_mm:.1f} mm)")
@@ -127,6 +130,8 @@ def plot_map(result: SurveyResult, path: Path | str, value: str = "centroid_hz")
             value,
             scale,
         )
+        if result.fretted:  # positions fixed on the body: fractions of the open scale
+            ax.set_xlabel("pickup position (fraction of the open scale from the bridge)")
         ax.set_title(title, fontsize=9)
     for ax in list(axes.flat)[len(panels) :]:
         ax.set_visible(False)

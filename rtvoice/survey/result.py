@@ -8,6 +8,7 @@ import numpy as np
 
 from rtvoice.engine import Settings
 from rtvoice.survey.inputs import Placement
+from rtvoice.survey.placing import NotePlace
 
 
 @dataclass(frozen=True)
@@ -33,6 +34,7 @@ class SurveyPlane:
     electronics_db: np.ndarray
     centroid_bare_hz: np.ndarray
     missing: np.ndarray
+    place: NotePlace | None = None  # where the note sounds (string and fret on a fretted instrument)
 
     def missing_harmonics(self, i_pluck: int, i_pickup: int) -> list[int]:
         """Harmonic numbers missing at one point."""
@@ -74,6 +76,16 @@ class SurveyResult:
     electronics_db: np.ndarray
     centroid_bare_hz: np.ndarray
     missing: np.ndarray  # (..., max mode count); False past a note's own count
+    places: tuple[NotePlace, ...] = ()  # where each note sounds (empty: open strings of their own, as before)
+
+    @property
+    def fretted(self) -> bool:
+        """True when the notes sound at strings and frets (positions fixed on the body)."""
+        return any(p.fretted for p in self.places)
+
+    def place(self, i_note: int) -> NotePlace:
+        """Where note ``i_note`` sounds."""
+        return self.places[i_note] if self.places else NotePlace(self.notes[i_note])
 
     @property
     def shape(self) -> tuple[int, ...]:
@@ -100,5 +112,6 @@ class SurveyResult:
             reference=self.reference,
             scale_length_mm=self.scale_length_mm,
             missing=self.missing[at][..., : int(self.mode_counts[i_note])],
+            place=self.place(i_note),
             **arrays,
         )

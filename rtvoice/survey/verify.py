@@ -23,6 +23,7 @@ from rtvoice.engine import Engine, Settings, midi
 from rtvoice.procutil import scoped_environ
 from rtvoice.survey.descriptors import describe, window_factor
 from rtvoice.survey.model import EngineModel
+from rtvoice.survey.placing import NotePlace
 from rtvoice.survey.result import SurveyResult
 
 LEVEL_TOLERANCE_DB = 0.5
@@ -74,36 +75,40 @@ def _projections(x: np.ndarray, logs: np.ndarray, chunk: int = 1024) -> np.ndarr
 
 
 def render_note(
-    settings: Settings, note: int, window_s: float, sample_rate_hz: float, block_frames: int
+    settings: Settings, note: int, window_s: float, sample_rate_hz: float, block_frames: int, channel: int = 0
 ) -> tuple[np.ndarray, bool]:
-    """(samples over the window, whether the limiter acted) of one held full-velocity note."""
+    """(samples over the window, whether the limiter acted) of one held full-velocity note on MIDI
+    ``channel`` (0-15; under the channel rule channel c plays string c + 1)."""
     engine = Engine(settings, sample_rate_hz, block_frames)
     n = int(round(window_s * engine.fs))
     skip = engine.stats.latency_frames  # the output's fixed delay: the window starts at the note-on
     out = np.empty(-(-(n + skip) // engine.block) * engine.block)
     limited = False
     for i in range(out.size // engine.block):
-        events = [(0, midi.NOTE_ON, note, 127)] if i == 0 else ()
+        events = [(0, midi.NOTE_ON | channel, note, 127)] if i == 0 else ()
         out[i * engine.block : (i + 1) * engine.block] = engine.render(events)
         limited = limited or engine.stats.gain_reduction_db > 0.0 or engine.stats.clipped > 0
     return out[skip : skip + n], limited
 
 
 def measure_energies(
-    settings: Settings, note: int, window_s: float, sample_rate_hz: float, block_frames: int
+    settings: Settings, note: int, window_s: float, sample_rate_hz: float, block_frames: int,
+    place: NotePlace | None = None,
 ) -> tuple[np.ndarray, float]:
     """(each harmonic's energy over the window at the settings' gain, residual), from audio.
 
-    When the limiter would act the note is rendered quieter and the energies scaled
+    ``place``: the string and fret the note sounds at (rendered on its channel), for a fretted
+    instrument. When the limiter would act the note is rendered quieter and the energies scaled
     back, so the measurement stays linear.
     """
     model = EngineModel(settings, sample_rate_hz)
-    modes = model.note_modes(note)
+    modes = model.note_modes(note, place)
+    channel = place.channel if place else 0
     backoff_db = 0.0
     gain_db = settings.get("output.gain_db")
     while True:
         quieter = settings.with_values({"output.gain_db": max(gain_db - backoff_db, -60.0)})
-        audio, limited = render_note(quieter, note, window_s, sample_rate_hz, block_frames)
+        audio, limited = render_note(quieter, note, window_s, sample_rate_hz, block_frames, channel)
         if not limited or backoff_db >= 3 * _LIMITER_BACKOFF_DB:
             break
         backoff_db += _LIMITER_BACKOFF_DB
@@ -228,11 +233,13 @@ def verify(
     jobs = jobs or os.cpu_count() or 1
     fs, window = result.sample_rate_hz, result.window_s
     notes_used = sorted({at[0] for at in points})
-    tasks = [(reference_settings(result), result.notes[i], window, fs, block_frames) for i in notes_used]
+    tasks = [(reference_settings(result), result.notes[i], window, fs, block_frames, result.place(i))
+             for i in notes_used]
     for at in points:
         s = point_settings(result, at)
-        tasks.append((s, result.notes[at[0]], window, fs, block_frames))
-        tasks.append((s.with_values(_BYPASS), result.notes[at[0]], window, fs, block_frames))
+        place = result.place(at[0])
+        tasks.append((s, result.notes[at[0]], window, fs, block_frames, place))
+        tasks.append((s.with_values(_BYPASS), result.notes[at[0]], window, fs, block_frames, place))
     measured = run_tasks(tasks, jobs, progress)
     ref_total = {i: float(measured[j][0].sum()) for j, i in enumerate(notes_used)}
     rows = []
@@ -253,7 +260,7 @@ def _compare(
     residual: float,
 ) -> VerifyRow:
     i_n, i_s, i_w, i_p, i_x = at
-    modes = model.note_modes(result.notes[i_n])
+    modes = model.note_modes(result.notes[i_n], result.place(i_n))
     measured = describe(energy, modes.freqs_hz, result.missing_below_db)
     analytic_energy = _analytic_energy(result, at, model, modes)
     strong = analytic_energy >= analytic_energy.max() * 1e-4
@@ -292,7 +299,7 @@ def _diff_db(measured: float, analytic: float) -> float:
 
 def _analytic_energy(result: SurveyResult, at, model: EngineModel, modes) -> np.ndarray:
     _, i_s, i_w, i_p, i_x = at
-    s_sq = np.abs(model.initial_amplitudes([result.plucks[i_p]])[0, : modes.count]) ** 2
+    s_sq = np.abs(model.initial_amplitudes([result.plucks[i_p]], modes)[0, : modes.count]) ** 2
     g = model.pickup_weights(modes, [result.pickups[i_x]], result.widths[i_w], result.sensings[i_s])[0]
     gain = modes.chain_gain**2 * modes.electronics_gain**2 * window_factor(modes.sigma_per_s, result.window_s)
     return s_sq * np.abs(g) ** 2 * gain

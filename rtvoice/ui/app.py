@@ -24,7 +24,9 @@ from textual.widgets import ContentSwitcher, Footer, Input
 from rtvoice.engine import Settings, SettingsError
 from rtvoice.host.messages import Device, Error, Exited, Learned, Notice
 from rtvoice.ui import userstate
+from rtvoice.ui.fretting import is_fretted, neck_picture
 from rtvoice.ui.guard import log_error, ui_log_path
+from rtvoice.ui.instrument_editing import FRETTED_CLASS, NECK_TITLE, InstrumentEditing
 from rtvoice.ui.keeping import AppGuard
 from rtvoice.ui.keyboard import OCTAVE_DOWN, OCTAVE_UP, KeyboardPlayer
 from rtvoice.ui.live_picture import LivePicture
@@ -38,6 +40,7 @@ from rtvoice.ui.sync import EngineView
 from rtvoice.ui.widgets.bars import HarmonicBars
 from rtvoice.ui.widgets.compare_view import CompareView
 from rtvoice.ui.widgets.meters import Meters
+from rtvoice.ui.widgets.neck_view import PLUCK, NeckView
 from rtvoice.ui.widgets.params import PICKUP_COUNT, ParamTable
 from rtvoice.ui.widgets.spectrum import SpectrumView
 from rtvoice.ui.widgets.status import MessageLine, SoundLine
@@ -49,7 +52,8 @@ NO_NOTE_DEFAULT = 40  # E2: the note the bars predict for before anything is pla
 VIEWS = ("harmonics", "spectrum", "compare")
 #: Actions of the main screen: while a dialog is in front they wait, and the footer leaves them out.
 MAIN_SCREEN_ACTIONS = ("presets", "save", "flip", "copy_slot", "toggle_view", "learn", "help", "survey",
-                       "restart_engine")
+                       "restart_engine", "strings")
+FRETTED_ACTIONS = ("strings",)  # shown and working on a fretted instrument only
 STRING_TITLE = "string: bridge → nut (▼ pluck, ▒ pickup aperture; ▽ and ⋮ the other slot's)"
 PARAMS_TITLE = "parameters (←/→ step, enter types a value)"
 
@@ -58,12 +62,16 @@ Screen { layout: vertical; }
 #views { height: 2fr; min-height: 5; border-top: solid $secondary; border-title-align: left; }
 StringView { height: 4; border-top: solid $secondary; border-title-align: left; }
 StringView:focus { border-top: heavy $accent; }
+NeckView { border-top: solid $secondary; border-title-align: left; }
+NeckView:focus { border-top: heavy $accent; }
+RtvoiceApp.-fretted #views { min-height: 4; }
+RtvoiceApp.-fretted ParamTable { min-height: 3; }
 ParamTable { height: 1fr; min-height: 4; border-top: solid $secondary; border-title-align: left; }
 ParamTable:focus { height: 2fr; border-top: heavy $accent; }
 """
 
 
-class RtvoiceApp(AppGuard, LivePicture, SoundEditing, PresetActions, App[int]):
+class RtvoiceApp(AppGuard, LivePicture, SoundEditing, InstrumentEditing, PresetActions, App[int]):
     """The instrument's screen. ``link`` is a started :class:`rtvoice.host.link.EngineLink`."""
 
     TITLE = "rtvoice"
@@ -82,6 +90,7 @@ class RtvoiceApp(AppGuard, LivePicture, SoundEditing, PresetActions, App[int]):
         Binding("ctrl+l", "learn", "learn", priority=True),
         Binding("ctrl+r", "restart_engine", "restart", show=False, priority=True),
         Binding("f2", "survey", "map"),
+        Binding("f3", "strings", "strings"),
     ]
 
     def __init__(
@@ -110,6 +119,8 @@ class RtvoiceApp(AppGuard, LivePicture, SoundEditing, PresetActions, App[int]):
         self.view = VIEWS[0]
         self.learning: str | None = None
         self.last_note = NO_NOTE_DEFAULT
+        self.last_place = None  # on a fretted instrument, where the last note the bars followed sounded
+        self.neck_selected = PLUCK  # the neck view's element the keys move
         self.frames = 0
         self._predicted_key = None
         self._predicted = np.zeros(0)
@@ -130,6 +141,7 @@ class RtvoiceApp(AppGuard, LivePicture, SoundEditing, PresetActions, App[int]):
         self.spectrum = SpectrumView(id="spectrum")
         self.compare = CompareView(id="compare")
         self.string_view = StringView(s, id="string")
+        self.neck_view = NeckView(neck_picture(s, self.engine.places, self.neck_selected), id="neck")
         self.params = ParamTable(s, id="params")
         self.meters = Meters(id="meters")
         self.message_line = MessageLine(id="message")
@@ -142,15 +154,20 @@ class RtvoiceApp(AppGuard, LivePicture, SoundEditing, PresetActions, App[int]):
             yield self.spectrum
             yield self.compare
         yield self.string_view
+        yield self.neck_view
         yield self.params
         yield self.message_line
         yield Footer()
 
     def on_mount(self) -> None:
         self.string_view.border_title = STRING_TITLE
+        self.neck_view.border_title = NECK_TITLE
         self.params.border_title = PARAMS_TITLE
         self._title_views()
-        self.string_view.focus()
+        fretted = is_fretted(self.session.settings)
+        self.neck_view.display, self.string_view.display = fretted, not fretted
+        self.set_class(fretted, FRETTED_CLASS)
+        (self.neck_view if fretted else self.string_view).focus()
         self._refresh_sound()
         self.engine.load(self.session.settings, self.say_error)
         self.set_interval(1.0 / self.frame_rate_hz, self._tick)
@@ -217,6 +234,9 @@ class RtvoiceApp(AppGuard, LivePicture, SoundEditing, PresetActions, App[int]):
             self.engine.all_notes_off()
             self.say("all strings muted")
             event.stop()
+        elif is_fretted(self.session.settings):
+            if self.play_string_key(char):
+                event.stop()
         elif char in (OCTAVE_DOWN, OCTAVE_UP):
             self.player.octave(-1 if char == OCTAVE_DOWN else 1)
             self._refresh_line()
@@ -230,11 +250,15 @@ class RtvoiceApp(AppGuard, LivePicture, SoundEditing, PresetActions, App[int]):
 
     # -- actions -----------------------------------------------------------------------
     def check_action(self, action: str, parameters: tuple) -> bool | None:
-        """Main-screen actions wait while a dialog is open (quitting always works)."""
+        """Main-screen actions wait while a dialog is open (quitting always works); the strings' table
+        is there only on a fretted instrument."""
+        if action in FRETTED_ACTIONS and not is_fretted(self.session.settings):
+            return False
         return not (isinstance(self.screen, ModalScreen) and action in MAIN_SCREEN_ACTIONS)
 
     def action_help(self) -> None:
-        self.push_screen(HelpScreen())
+        s = self.session.settings
+        self.push_screen(HelpScreen(self.player, s) if is_fretted(s) else HelpScreen())
 
     def action_survey(self) -> None:
         from rtvoice.ui.screens.survey import SurveyScreen
@@ -264,7 +288,7 @@ class RtvoiceApp(AppGuard, LivePicture, SoundEditing, PresetActions, App[int]):
             return
         name = self._selected_parameter()
         if name is None or name == PICKUP_COUNT:
-            self.say_error("choose a parameter first (in the list or on the string)")
+            self.say_error("choose a parameter first (in the list, on the string or on the neck)")
             return
         if self.engine.learn(name, self.say_error):
             self.learning = name
@@ -272,9 +296,7 @@ class RtvoiceApp(AppGuard, LivePicture, SoundEditing, PresetActions, App[int]):
             self._refresh_line()
 
     def _selected_parameter(self) -> str | None:
-        if isinstance(self.focused, StringView):
-            return self.focused.element.position_name
-        return self.params.selected_name
+        return self.selected_on_instrument() or self.params.selected_name
 
     async def action_restart_engine(self) -> None:
         if self.engine.alive():

@@ -19,15 +19,18 @@ if TYPE_CHECKING:
     from textual.app import App
     from textual.widgets import ContentSwitcher
 
+    from rtvoice.engine import Settings
     from rtvoice.host.link import Snapshot
     from rtvoice.host.messages import Notice
     from rtvoice.ui.compare import SlotComparison
+    from rtvoice.ui.fretting import Place
     from rtvoice.ui.keyboard import KeyboardPlayer
     from rtvoice.ui.session import SoundSession
     from rtvoice.ui.sync import EngineView
     from rtvoice.ui.widgets.bars import HarmonicBars
     from rtvoice.ui.widgets.compare_view import CompareView
     from rtvoice.ui.widgets.meters import Meters
+    from rtvoice.ui.widgets.neck_view import NeckView
     from rtvoice.ui.widgets.params import ParamTable
     from rtvoice.ui.widgets.spectrum import SpectrumView
     from rtvoice.ui.widgets.status import MessageLine, SoundLine
@@ -38,9 +41,10 @@ else:
     _AppBase = object
 
 #: The cache keys of the predicted bars and the A/B comparison (see :mod:`rtvoice.ui.live_picture`):
-#: ids of the settings, the note, (the rounded f0 in Hz,) harmonics shown, velocity.
-PredictedKey = tuple[int, int, float | None, int, int]
-ComparedKey = tuple[int, int, int, int, int]
+#: ids of the settings, the note, its place on a fretted instrument, (the rounded f0 in Hz,)
+#: harmonics shown, velocity.
+PredictedKey = tuple[int, int, "Place | None", float | None, int, int]
+ComparedKey = tuple[int, int, int, "Place | None", int, int]
 
 
 class AppParts(_AppBase):
@@ -58,6 +62,8 @@ class AppParts(_AppBase):
     view: str  # one of rtvoice.ui.app.VIEWS
     learning: str | None  # the parameter waiting for a controller to move, if any
     last_note: int
+    last_place: Place | None  # fretted: where the last note the bars followed sounded
+    neck_selected: str  # the neck view's element the keys move ("pluck", "hand", "pickup 1", ...)
     frames: int
     _predicted_key: PredictedKey | None
     _predicted: np.ndarray
@@ -76,6 +82,7 @@ class AppParts(_AppBase):
     spectrum: SpectrumView
     compare: CompareView
     string_view: StringView
+    neck_view: NeckView
     params: ParamTable
     meters: Meters
     message_line: MessageLine
@@ -94,5 +101,13 @@ class AppParts(_AppBase):
         def _refresh_sound(self) -> None: ...
 
         def _refresh_line(self, note: int = -1) -> None: ...
+
+        def _show_instrument(self, settings: Settings) -> None: ...
+
+        def show_strings(self, settings: Settings) -> None: ...
+
+        def change(self, name: str, value: Any) -> bool: ...
+
+        def ask_typed(self, name: str) -> None: ...
 
         def _engine_message(self, msg: Notice) -> None: ...

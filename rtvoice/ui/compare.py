@@ -3,7 +3,8 @@
 Both slots are predicted with the model the harmonic bars use (attack levels of each
 harmonic, after pickups, electronics and output gain), so a comparison needs no sound
 to be playing. The differences named are the ones a player hears when flipping: total
-level, spectral centroid (brightness), and harmonics one sound has and the other lacks.
+level, spectral centroid (brightness), and harmonics one sound has and the other lacks. On a
+fretted instrument a slot is predicted at the note's string and fret, where it has that place.
 """
 
 from __future__ import annotations
@@ -12,9 +13,11 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from rtvoice.engine import Settings
+from rtvoice.engine import Settings, placed_note
+from rtvoice.physics.modes import mode_frequencies_hz
 from rtvoice.physics.tuning import midi_note_to_hz
-from rtvoice.ui.prediction import FLOOR_DB, harmonic_frequencies_hz, predicted_levels_db
+from rtvoice.ui.fretting import Place, is_fretted, place_fits
+from rtvoice.ui.prediction import FLOOR_DB, harmonic_frequencies_hz, predicted_levels_at, predicted_levels_db
 
 #: A harmonic this far below the sound's strongest counts as missing (the survey's default too).
 MISSING_BELOW_DB = 40.0
@@ -76,12 +79,18 @@ def _energy_terms(levels_db: np.ndarray, freqs_hz: np.ndarray) -> tuple[float, f
 
 
 def compare_slots(a: Settings, b: Settings, note: int, n: int, velocity: int = 100,
-                  sample_rate_hz: float = 48000.0) -> SlotComparison:
-    """Predicted attack spectra of ``note`` (harmonics 1..n, at ``velocity``) in sounds ``a`` and ``b``."""
+                  sample_rate_hz: float = 48000.0, place: Place | None = None) -> SlotComparison:
+    """Predicted attack spectra of ``note`` (harmonics 1..n, at ``velocity``) in sounds ``a`` and ``b``;
+    a fretted sound that has ``place`` is predicted there (the note ``note`` on its string and fret)."""
     freqs, levels, terms = [], [], []
     for s in (a, b):
-        f = harmonic_frequencies_hz(s, midi_note_to_hz(note, s.get("tuning.a4_hz")), n)
-        lv = predicted_levels_db(s, note, n, velocity, None, sample_rate_hz)
+        if place is not None and is_fretted(s) and place_fits(s, place):
+            placed = placed_note(s, place.string, place.fret)
+            f = mode_frequencies_hz(placed.f0_hz, placed.inharmonicity, n)
+            lv = predicted_levels_at(s, place.string, place.fret, n, velocity, None, sample_rate_hz)
+        else:
+            f = harmonic_frequencies_hz(s, midi_note_to_hz(note, s.get("tuning.a4_hz")), n)
+            lv = predicted_levels_db(s, note, n, velocity, None, sample_rate_hz)
         freqs.append(f)
         levels.append(lv)
         terms.append(_energy_terms(lv, f))

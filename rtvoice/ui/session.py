@@ -138,7 +138,8 @@ class SoundSession:
         """Load the preset file ``info`` names (PresetError / SettingsError change nothing).
 
         What the file's :class:`~rtvoice.engine.presets.PresetWarning` says (keys from a
-        newer rtvoice left out) is kept in :attr:`notes` for the screen to show.
+        newer rtvoice left out) and its :class:`~rtvoice.engine.PresetFormatNotice` (fractions
+        from before positions were in mm) are kept in :attr:`notes` for the screen to show.
         """
         settings = self._read(info.path)
         self._put(Slot(settings, info.name, info.origin, settings, str(info.path)))
@@ -147,8 +148,10 @@ class SoundSession:
     def _read(self, path) -> Settings:
         with warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always", presets.PresetWarning)
+            warnings.simplefilter("always", presets.PresetFormatNotice)
             settings = presets.read_preset_file(path)
-        self.notes = [str(w.message) for w in caught if issubclass(w.category, presets.PresetWarning)]
+        told = (presets.PresetWarning, presets.PresetFormatNotice)
+        self.notes = [str(w.message) for w in caught if issubclass(w.category, told)]
         return settings
 
     def save(self, name: str | None = None, description: str | None = None) -> str:

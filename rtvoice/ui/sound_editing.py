@@ -104,14 +104,18 @@ class SoundEditing(AppParts):
         self.change(message.name, stepped(param, current, message.direction, message.fine))
 
     def on_param_table_edit_requested(self, message: ParamTable.EditRequested) -> None:
-        name = message.name
+        self.ask_typed(message.name)
+
+    def ask_typed(self, name: str) -> None:
+        """The typed-value prompt for parameter ``name`` (any dotted name, ``strings.<n>.<field>`` too);
+        the value is checked as it is typed and applied on enter."""
         if name == PICKUP_COUNT:
             value, hint = str(len(self.session.settings.pickups)), f"1 .. {MAX_PICKUPS}"
         else:
             param, _ = lookup(name)
             value = _typed_form(param, self.session.settings.get(name))
             hint = f"{param.help}  Allowed: {param.describe_range()}"
-            if name.endswith((".position", ".width")):
+            if name.endswith((".position", ".width", ".slant")):
                 hint += "  (or millimetres, like 120mm)"
 
         def done(text: str | None) -> None:
@@ -123,7 +127,9 @@ class SoundEditing(AppParts):
 
 
 def _typed_form(param: Param, value: Any) -> str:
-    """A value as it would be typed back (TOML-like)."""
+    """A value as it would be typed back (TOML-like; ``none`` for a string field left to the gauge)."""
+    if value is None:
+        return "none"
     if param.kind == "shape":
         return "[" + ", ".join(f"[{x:g}, {y:g}]" for x, y in value) + "]"
     if param.kind == "choice":

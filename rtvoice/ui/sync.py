@@ -1,5 +1,6 @@
-"""The app's side of the engine link: calls that never raise into the UI, and the
-conversion of the engine's live mode levels into the terms of the prediction.
+"""The app's side of the engine link: calls that never raise into the UI, the conversion of
+the engine's live mode levels into the terms of the prediction, and where the engine's voices
+sound on a fretted instrument.
 """
 
 from __future__ import annotations
@@ -12,6 +13,7 @@ import numpy as np
 from rtvoice.engine import Settings, default_entries
 from rtvoice.errors import UserError
 from rtvoice.host.messages import Notice
+from rtvoice.ui.fretting import LivePlaces
 from rtvoice.ui.prediction import FLOOR_DB, electronics_gain, to_db
 
 Report = Callable[[str], None]
@@ -37,9 +39,13 @@ class EngineView:
 
     def __init__(self, link: Any):
         self.link = link
+        self.places = LivePlaces()  # as of the last snapshot
 
     def snapshot(self):
-        return self.link.snapshot()
+        """The engine's latest meters; :attr:`places` is read with them."""
+        snap = self.link.snapshot()
+        self.places = LivePlaces.from_snapshot(snap)
+        return snap
 
     def messages(self) -> list[Notice]:
         return list(self.link.poll_messages())
@@ -89,8 +95,9 @@ class EngineView:
             return self._call(report, self.link.set_controls, default_entries())
         return True
 
-    def note_on(self, note: int, velocity: int, report: Report) -> bool:
-        return self._call(report, self.link.note_on, note, velocity)
+    def note_on(self, note: int, velocity: int, report: Report, channel: int = 0) -> bool:
+        """A note-on as from a MIDI input on ``channel`` (0-15)."""
+        return self._call(report, self.link.note_on, note, velocity, channel)
 
     def all_notes_off(self) -> None:
         self.link.all_notes_off()

@@ -26,7 +26,7 @@ def rounded(value: Any) -> str:
 
 def said_value(name: str, value: Any, scale_length_mm: float) -> str:
     """``pickup 1 position = 40.0 mm (0.0617)``: a position or width in mm, then the fraction."""
-    if name.endswith((".position", ".width")) and isinstance(value, float):
+    if name.endswith((".position", ".width", ".slant")) and isinstance(value, float):
         return f"{display_name(name)} = {value * scale_length_mm:.1f} mm ({rounded(value)})"
     return f"{display_name(name)} = {rounded(value)}"
 

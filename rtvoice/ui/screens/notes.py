@@ -8,9 +8,17 @@ from textual.containers import VerticalScroll
 from textual.screen import ModalScreen
 from textual.widgets import Button, Footer, Static
 
-from rtvoice.engine import CEILING_DBFS
+from rtvoice.engine import CEILING_DBFS, Settings
 from rtvoice.ui.guard import Guarded
-from rtvoice.ui.keyboard import OCTAVE_DOWN, OCTAVE_UP, layout_lines
+from rtvoice.ui.keyboard import (
+    OCTAVE_DOWN,
+    OCTAVE_UP,
+    STRINGS_DOWN,
+    STRINGS_UP,
+    KeyboardPlayer,
+    layout_lines,
+    string_layout_lines,
+)
 
 HELP_KEYS = [
     ("anywhere", [
@@ -44,6 +52,29 @@ HELP_KEYS = [
 ]
 
 
+#: On a fretted instrument: the keys that differ from the open rule's, and the neck view's.
+FRETTED_PLAYING = [
+    ("letters, digits", "pluck a string at a fret (it rings out by itself)"),
+    (f"{STRINGS_DOWN} {STRINGS_UP}", "the rows move to the lower / higher strings"),
+    (f"{OCTAVE_DOWN} {OCTAVE_UP}", "the rows move 12 frets towards the nut / the saddle"),
+    ("space", "mute every string (all notes off)"),
+]
+FRETTED_PLACES = [
+    ("on the neck", [
+        ("tab / shift+tab", "choose the pluck, the hand or a pickup, then the next view"),
+        ("left / right", "move it 1 mm (shift: 10 mm), a slanted pickup's both ends"),
+        ("", "together; the hand a fret (shift: five); the mouse drags them"),
+        ("f3", "the strings: gauges, tension and B; enter types a new value"),
+    ]),
+]
+FRETTED_RULES = [
+    "A key sends its note (open note plus fret) on its string's MIDI channel.",
+    "instrument.assign = channel: that string plays it, at that fret.",
+    "instrument.assign = hand: the engine gives it to the string where it",
+    "falls nearest the hand (hand.fret), as it does any MIDI note.",
+]
+
+
 METER_WORDS = [
     ("load", "time the audio callback takes, as a share of its block period (median, then p99); "
              "bold from 70 %"),
@@ -59,13 +90,26 @@ METER_WORDS = [
 ]
 
 
-def help_text() -> str:
-    """Playing first (with the keyboard rows), then the keys of each place, the bars and the meters."""
+def help_text(rows: list[str] | None = None) -> str:
+    """Playing first (with the keyboard rows), then the keys of each place, the bars and the meters.
+
+    ``rows``: on a fretted instrument, the rows as they play its strings now
+    (:func:`rtvoice.ui.keyboard.string_layout_lines`); the help then tells the neck's keys
+    instead of the one-string view's."""
     lines = ["How to play and edit", ""]
-    for section, keys in sorted(HELP_KEYS, key=lambda item: item[0] != "playing"):
+    fretted = rows is not None
+    sections = [(n, FRETTED_PLAYING if fretted and n == "playing" else keys) for n, keys in HELP_KEYS
+                if not (fretted and n == "on the string")]
+    if fretted:
+        sections += FRETTED_PLACES
+    for section, keys in sorted(sections, key=lambda item: item[0] != "playing"):
         lines.append(f"{section}:")
         lines += [f"  {k:<16} {what}" for k, what in keys]
-        if section == "playing":
+        if section == "playing" and rows is not None:
+            lines.append("  The keyboard rows are the instrument's strings, a fret a key:")
+            lines += [f"  {row}" for row in rows]
+            lines += [f"  {line}" for line in FRETTED_RULES]
+        elif section == "playing":
             lines.append("  The keyboard rows are four strings a fourth apart; each key is one fret higher:")
             lines += [f"  {row}" for row in layout_lines()]
         lines.append("")
@@ -83,9 +127,14 @@ class HelpScreen(Guarded, ModalScreen[None]):
     """
     BINDINGS = [Binding("escape,f1,q,question_mark", "close", "close")]
 
+    def __init__(self, player: KeyboardPlayer | None = None, settings: Settings | None = None) -> None:
+        """With ``player`` and ``settings`` (a fretted instrument) the help tells its keyboard rows."""
+        super().__init__()
+        self.rows = None if player is None or settings is None else string_layout_lines(player, settings)
+
     def compose(self) -> ComposeResult:
         with VerticalScroll(id="help-body"):
-            yield Static(help_text(), id="help-text")
+            yield Static(help_text(self.rows), id="help-text")
             yield Static("escape: close", classes="dim")
         yield Footer()
 

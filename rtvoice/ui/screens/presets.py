@@ -105,8 +105,9 @@ class PresetScreen(Guarded, ModalScreen[PresetChoice | None]):
                 warnings.simplefilter("always", PresetWarning)
                 settings = read_preset_file(info.path)
             text = settings.description or "(no description)"
-            if caught:
-                text += f" (from a newer rtvoice: {caught[0].message})"
+            newer = [w for w in caught if issubclass(w.category, PresetWarning)]
+            if newer:
+                text += f" (from a newer rtvoice: {newer[0].message})"
         except (PresetError, ValueError) as err:
             text = f"cannot be read: {err}"
         self.query_one("#preset-note", Static).update(f"{info.name}: {text}")

@@ -15,7 +15,8 @@ MODIFIED_MARK = "✱ changed"
 
 
 class SoundLine(Guarded, Widget):
-    """Sound name, origin, changed marker, A/B slot, octave and what the last note is."""
+    """Sound name, origin, changed marker, A/B slot, octave and what the last note is; on a fretted
+    instrument the hand's fret and the strings and frets the keyboard rows play instead of the octave."""
 
     DEFAULT_CSS = """
     SoundLine { height: 1; background: $boost; }
@@ -42,10 +43,15 @@ class SoundLine(Guarded, Widget):
         if f.get("learning"):  # the learn target matters more than the octave while learning
             text.append(f"  LEARN {display_name(f['learning'])}: move a control", style="reverse")
             return text
-        text.append(f"  oct {f.get('octave', 0):+d}")
+        if f.get("hand"):
+            text.append(f"  {f['hand']}")
+        else:
+            text.append(f"  oct {f.get('octave', 0):+d}")
         note = f.get("note", -1)
         if note is not None and note >= 0:
             text.append(f"  ringing {note_name(note)}")
+        if f.get("keys"):  # last: the first thing a narrow line leaves out
+            text.append(f"  {f['keys']}")
         return text
 
 
