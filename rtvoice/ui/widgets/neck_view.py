@@ -84,18 +84,25 @@ class NeckView(Guarded, Widget, can_focus=True):
         Binding("shift+tab", "select(-1)", "previous element", show=False),
     ]
 
-    class MoveRequested(Message):
+    class _Request(Message):
+        """A request from the neck view; ``control`` is the view that asked (Textual's convention)."""
+
+        def __init__(self, neck_view: NeckView) -> None:
+            super().__init__()
+            self._neck_view = neck_view
+
+        @property
+        def control(self) -> NeckView:
+            return self._neck_view
+
+    class MoveRequested(_Request):
         """Ask for ``element`` (the pluck or a pickup; both ends of a slanted pickup together) to
         move ``delta_mm`` along the strings, positive away from the saddle. Relative, so every
         press counts even when presses come faster than redraws."""
 
         def __init__(self, neck_view: NeckView, element: str, delta_mm: float) -> None:
-            super().__init__()
-            self._neck_view, self._element, self._delta_mm = neck_view, element, float(delta_mm)
-
-        @property
-        def control(self) -> NeckView:
-            return self._neck_view
+            super().__init__(neck_view)
+            self._element, self._delta_mm = element, float(delta_mm)
 
         @property
         def element(self) -> str:
@@ -105,31 +112,23 @@ class NeckView(Guarded, Widget, can_focus=True):
         def delta_mm(self) -> float:
             return self._delta_mm
 
-    class HandRequested(Message):
+    class HandRequested(_Request):
         """Ask for the fretting hand to move ``delta_frets`` (positive: up the neck, towards the saddle)."""
 
         def __init__(self, neck_view: NeckView, delta_frets: float) -> None:
-            super().__init__()
-            self._neck_view, self._delta_frets = neck_view, float(delta_frets)
-
-        @property
-        def control(self) -> NeckView:
-            return self._neck_view
+            super().__init__(neck_view)
+            self._delta_frets = float(delta_frets)
 
         @property
         def delta_frets(self) -> float:
             return self._delta_frets
 
-    class SelectRequested(Message):
+    class SelectRequested(_Request):
         """Ask for ``element`` to become the selected one (the next picture's ``selected``)."""
 
         def __init__(self, neck_view: NeckView, element: str) -> None:
-            super().__init__()
-            self._neck_view, self._element = neck_view, element
-
-        @property
-        def control(self) -> NeckView:
-            return self._neck_view
+            super().__init__(neck_view)
+            self._element = element
 
         @property
         def element(self) -> str:
