@@ -12,11 +12,13 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+import numpy as np
+
 from rtvoice.engine.notes import NoteModel, initial_amplitudes
 from rtvoice.engine.settings import Settings, SettingsError
 from rtvoice.engine.stringing import inharmonicity_of, t60s_of
 from rtvoice.physics.damping import decay_rate_per_s, loss_coefficients
-from rtvoice.physics.frets import stiffness_at_fret
+from rtvoice.physics.frets import interpolate_across_strings, stiffness_at_fret
 from rtvoice.physics.modes import mode_frequencies_hz, playable_mode_count
 from rtvoice.physics.tuning import midi_note_to_hz
 
@@ -50,6 +52,14 @@ class PlacedNote:
         return (float(position) + float(slant) * self.slant_share) * self.scale
 
 
+def slant_shares(strings: np.ndarray | int, count: int) -> np.ndarray:
+    """Where each of ``strings`` (1-based) lies across a slanted pickup of ``count`` strings: +1/2
+    under string 1 (the treble end), -1/2 under the last, linearly between (equal spacing), by
+    :func:`rtvoice.physics.frets.interpolate_across_strings`; 0 for a single string."""
+    shares: np.ndarray = np.asarray(interpolate_across_strings(0.0, 1.0, strings, count)) - 0.5
+    return shares
+
+
 def placed_note(settings: Settings, string: int, fret: int) -> PlacedNote:
     """The note ``settings``' instrument sounds at ``string`` and ``fret``; SettingsError when it has no
     such string or fret."""
@@ -69,7 +79,7 @@ def placed_note(settings: Settings, string: int, fret: int) -> PlacedNote:
         inharmonicity=float(stiffness_at_fret(inharmonicity_of(settings, string), float(fret))),
         t60_low_s=t60s_of(settings, string)[0], t60_high_s=t60s_of(settings, string)[1],
         scale=2.0 ** (fret / 12.0),
-        slant_share=0.5 - (string - 1) / (n - 1) if n > 1 else 0.0,
+        slant_share=float(slant_shares(string, n)),
     )
 
 
@@ -85,4 +95,4 @@ def note_model_at(settings: Settings, string: int, fret: int, n_modes: int, samp
     return NoteModel(placed.note, placed.f0_hz, freqs, sigma, initial, playable_mode_count(freqs, sample_rate_hz))
 
 
-__all__ = ["PlacedNote", "note_model_at", "placed_note"]
+__all__ = ["PlacedNote", "note_model_at", "placed_note", "slant_shares"]

@@ -29,6 +29,7 @@ import numpy as np
 from rtvoice.engine.changes import Excitation
 from rtvoice.engine.instrument import MAX_FRETS, OPEN_PLACES, Instrument, string_and_fret
 from rtvoice.engine.notes import harmonic_stretch, initial_amplitudes
+from rtvoice.engine.placed_notes import slant_shares
 from rtvoice.engine.settings import Settings
 from rtvoice.engine.stringing import inharmonicity_of, t60s_of
 from rtvoice.physics.damping import decay_rate_per_s, loss_coefficients
@@ -71,7 +72,7 @@ class PlaceModel:
         self.string_b1 = np.array([b1 for b1, _ in loss])
         self.string_b3 = np.array([b3 for _, b3 in loss])
         # Where each string lies across the slant: +1/2 under string 1 (treble), -1/2 under the last.
-        self.slant_share = np.linspace(0.5, -0.5, n) if n > 1 else np.zeros(1)
+        self.slant_share = slant_shares(np.arange(1, n + 1), n)
         self._stretch.clear()
         self._initial.clear()
         self._weight_abs.clear()
