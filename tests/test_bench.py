@@ -20,6 +20,7 @@ import pytest
 import scipy.signal
 from analysis import fit_damped_modes, peak_frequency_hz
 from support.describe import failing
+from support.sounds import open_strings
 
 from rtvoice.bench.baselines import (
     KarplusStrongBank,
@@ -56,8 +57,12 @@ def _sigma(f_hz):
 
 
 def simple_note_settings() -> Settings:
-    """One harmonic string (B = 0), plucked at 1/4, one displacement pickup, no coil filter, 0 dB."""
-    return Settings.defaults().with_values({
+    """One harmonic string (B = 0), plucked at 1/4, one displacement pickup, no coil filter, 0 dB.
+
+    An open string of its own: the formulas below take the pluck and the pickup as fractions of the
+    note's own length, and the B = 0 string of a harmonic series (a fretted voice would take its
+    string's stiffness and see the pluck at distance / speaking length)."""
+    return open_strings(Settings.defaults()).with_values({
         "tuning.a4_hz": F1 * 2 ** (3 / 12),  # note 66 is three semitones under A4 (12-TET)
         "string.inharmonicity": 0.0,
         "string.modes": 24,
@@ -258,7 +263,7 @@ def test_quick_bench_prints_every_figure_as_json(tmp_path):
     assert all(p["active_voices"] == p["voices"] for p in result["grid"])
     names = {b for row in result["baselines"] for b in row["baselines"]}
     assert names == {"a_resonators_lfilter", "b_phasor_recursion", "c_karplus_strong"}
-    assert len(result["targets"]) == 5
+    assert len(result["targets"]) == 6  # the fretted six-string's note-on target among them
     assert all(t["met"] in (True, False) for t in result["targets"])
 
 

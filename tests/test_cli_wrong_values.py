@@ -41,6 +41,8 @@ BASE = {
     ("play",): ["--headless", "--audio-device", "none", "--midi-in", "none", "--duration", "0.1"],
     ("bench",): ["--quick"],
     ("survey",): ["--note", "60", "--pickup", "0.1:0.2:0.05", "-o", "{out}"],
+    # a take rendered by the engine (E3 on string 5, 16-bit 24 kHz) made for this check
+    ("fit",): [str(Path(__file__).parent / "data" / "fit" / "e3-string5.wav"), "--string", "5"],
 }
 
 NUMBER_WRONG = ["abc", "", "nan", "inf", "-99999999", "1e999", "0x10"]
@@ -73,6 +75,9 @@ TEXT_WRONG = {
     "midifile": ["/no/such.mid", "{folder}", "{garbage}"],
     "name": ["no-such-preset", "../x", "", "{garbage}"],
     "files": ["/no/such.toml", "{garbage}"],
+    "takes": ["/no/such.wav", "{folder}", "{garbage}", ""],  # fit: no file, a folder, not a WAV, no name
+    "report": PATH_WRONG,
+    "render": PATH_WRONG,
 }
 #: Positionals whose command reports per file on stdout ("error ...") by design, exit 2.
 REPORTS_ON_STDOUT = {("presets", "check", "files")}
@@ -132,7 +137,8 @@ def command_line(path, dest, value, scratch: Path) -> list[str]:
     values = [v.format(**fill) for v in values]
     base = [v.format(**fill) for v in BASE[path]]
     if not action.option_strings:  # a positional replaces the base's positional (render: the --note)
-        base = {("render",): ["-o", fill["out"]], ("presets", "show"): [], ("presets", "check"): []}[path]
+        base = {("render",): ["-o", fill["out"]], ("presets", "show"): [], ("presets", "check"): [],
+                ("fit",): ["--string", "5"]}[path]
         return [*path, *values, *base]
     cleaned, skip = [], 0
     for i, token in enumerate(base):

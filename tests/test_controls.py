@@ -14,13 +14,16 @@ import pytest
 import tomli_w
 from hypothesis import given
 from hypothesis import strategies as st
+from support.sounds import open_strings
 
+from rtvoice.engine import sounding_places
 from rtvoice.engine.controls import (
     ControlMap,
     check_entries,
     default_entries,
     scale,
 )
+from rtvoice.engine.events import Error
 from rtvoice.engine.renderer import Engine
 from rtvoice.engine.settings import Settings, SettingsError
 from rtvoice.physics.pickup import aperture_weights
@@ -177,7 +180,9 @@ def test_control_map_round_trips_through_a_preset_file():
     assert "[[control]]" in text
     again = Settings.from_toml_text(text, source="mapped.toml")
     assert list(again.controls) == check_entries(entries)
-    assert again.with_values({"pickup.0.position": 0.3}).controls == again.controls  # kept on edits
+    # kept on edits (an edit the default fretted neck allows: 0.25 of 648 mm = 162 mm, short of the
+    # 22nd fret at 181.8 mm by the 12-TET fret rule, common practice)
+    assert again.with_values({"pickup.0.position": 0.25}).controls == again.controls
 
 
 def test_preset_without_control_tables_uses_the_default_map():
@@ -208,7 +213,9 @@ def test_mpe_per_note_timbre_sets_each_notes_pluck_position():
     """MPE: CC74 on a member channel sent before the note-on sets that note's timbre (per note).
     Here it sets where the string is plucked; a pluck at 1/n of the length leaves out every
     n-th harmonic (Fletcher & Rossing 1998, ch. 2: a_k ~ sin(k pi p))."""
-    settings = _quiet_settings()
+    # Open strings: the nulls are at fractions of each note's own length, and a pluck at the middle
+    # of the string lies over a fretted neck (a fretted voice sees distance / speaking length).
+    settings = open_strings(_quiet_settings())
     engine = Engine(settings, FS, BLOCK)  # the engine's own controller map, set to one MPE entry
     engine.controls.set_entries([{"target": "excitation.position", "source": "note_timbre", "low": 0.1, "high": 0.5}])
     # lower zone with 15 members (MPE configuration message, RPN 6 on the master channel)
@@ -231,7 +238,9 @@ def test_mpe_per_note_timbre_sets_each_notes_pluck_position():
 def test_controller_moves_the_pickup_of_a_ringing_note_as_the_model_predicts():
     """Pickup weight of harmonic k at x: sin(k pi x) sinc(k pi w / 2) (Paiva, Pakarinen &
     Valimaki, JAES 60(10) 2012); with equal T60 at all frequencies all harmonics decay alike,
-    so harmonic ratios before/after the move follow the weights alone."""
+    so harmonic ratios before/after the move follow the weights alone. On the default fretted neck
+    the note sounds at a fret n, where the pickup and its aperture (fixed in space) are fractions
+    of the speaking length L 2^(-n/12): x and w grow by 2^(n/12) (12-TET fret rule, common practice)."""
     settings = _quiet_settings()
     engine = Engine(settings, FS, BLOCK)  # the default controller map: CC1/33 moves pickup 1
     entry = _entry_for(1)
@@ -246,9 +255,12 @@ def test_controller_moves_the_pickup_of_a_ringing_note_as_the_model_predicts():
     after = engine.mode_levels(0)[:6]
     x_after = engine.settings.get("pickup.0.position")
     assert x_after == pytest.approx(scale(entry, 100 * 128 / 16383))
+    (place,) = sounding_places(engine)
+    assert (place.note, place.string, place.fret) == (45, 6, 5)  # A2 nearest the hand at fret 3 (standard tuning)
+    longer = 2 ** (place.fret / 12)  # scale length / speaking length
     k = np.arange(1, 7)
-    w = settings.get("pickup.0.width")
-    predicted = np.abs(aperture_weights(k, x_after, w) / aperture_weights(k, x_before, w))
+    w = settings.get("pickup.0.width") * longer
+    predicted = np.abs(aperture_weights(k, x_after * longer, w) / aperture_weights(k, x_before * longer, w))
     measured = after / before
     assert measured / measured[0] == pytest.approx(predicted / predicted[0], rel=1e-3)
 
@@ -307,3 +319,29 @@ def test_controller_sweep_adds_no_broadband_clicks():
         f = 110.0 * k
         assert _band_share_db(swept, f - 30, f + 30, 0.25, 1.25) == pytest.approx(
             _band_share_db(stepped, f - 30, f + 30, 0.25, 1.25), abs=1.0)
+
+
+def test_a_controller_carries_the_pickup_no_further_than_the_last_fret():
+    """On a fretted neck a pickup cannot sit over the frets; the 12-TET fret rule (common practice)
+    puts the last of 12 frets L 2^(-12/12) = 324 mm from the saddle of a 648 mm string. The mod
+    wheel at full travel on such a neck stops the pickup 1 mm short of it, with no error; under the
+    open rule the same travel reaches the map's end."""
+    entry = {"target": "pickup.0.position", "cc": 1, "low": 0.03, "high": 0.9}
+    for assign, frets, expected_mm in (("hand", 12, 648.0 / 2 - 1.0), ("open", 12, 0.9 * 648.0)):
+        engine = Engine(_quiet_settings(**{"instrument.assign": assign, "instrument.frets": frets}), FS, BLOCK)
+        engine.controls.set_entries([entry])
+        engine.render([(0, 0xB0, 1, 127)])
+        engine.render()
+        assert engine.settings.get("pickup.0.position") * 648.0 == pytest.approx(expected_mm, abs=1e-9)
+        assert not [e for e in engine.messages if isinstance(e, Error)]  # nothing was refused
+
+
+def test_the_default_map_moves_the_fretting_hand_with_general_purpose_4():
+    """CC19 (general purpose controller 4, MIDI 1.0) sets where the hand sits, nut to 12th fret."""
+    engine = Engine(_quiet_settings(**{"instrument.assign": "hand"}), FS, BLOCK)
+    engine.render([(0, 0xB0, 19, 127)])
+    engine.render()
+    assert engine.settings.get("hand.fret") == pytest.approx(12.0)
+    for e in default_entries():
+        if e["target"].endswith("position"):  # places within the default 22-fret neck (181.8 mm)
+            assert e["high"] * 648.0 < 648.0 * 2 ** (-22 / 12)

@@ -32,6 +32,14 @@ def clean(**values) -> Settings:
     return Settings.defaults().with_values(base)
 
 
+def clean_open(**values) -> Settings:
+    """:func:`clean` with every note an open string of its own (``instrument.assign = "open"``), for
+    the checks of the open-string model: pluck and pickup as fractions of the note's own length,
+    anywhere along it; ``string.inharmonicity`` as every note's B (a fretted voice takes its
+    string's B from the gauge, x 2^(n/6) at fret n); any note, any number of them at once."""
+    return clean(instrument__assign="open", **values)
+
+
 #: The engine's output is this many frames late (a fixed delay, its limiter's look-ahead, documented
 #: in Engine.stats.latency_frames): a note-on at sample n of a block is heard from sample n + LATENCY
 #: of what Engine.render returns. Offline renders (render_events) take the delay off.
@@ -60,7 +68,8 @@ def test_note_69_is_440_hz_in_the_audio():
 def test_stiff_string_partials_in_the_audio_follow_fletcher():
     # Fletcher, JASA 36, 203 (1964): f_k = k f0 sqrt(1 + B k^2), measured from the rendered audio.
     b = 1e-3
-    s = clean(string__inharmonicity=b, excitation__position=0.13, pickup__0__position=0.07)
+    # open rule: the note's B is string.inharmonicity (a fretted voice takes its string's own B)
+    s = clean_open(string__inharmonicity=b, excitation__position=0.13, pickup__0__position=0.07)
     x = render_note(s, note=40, seconds=1.2)
     f0 = 440 * 2 ** ((40 - 69) / 12)
     for k in (2, 5, 10, 20):
@@ -92,7 +101,8 @@ def predicted_levels(k, pluck, pickup, sensing, velocity=127, gain_db=0.0):
 @pytest.mark.parametrize("sensing", ["displacement", "velocity"])
 @pytest.mark.parametrize(("pluck", "pickup"), [(0.2, 0.15), (0.5, 0.27), (0.08, 0.33)])
 def test_harmonic_levels_match_the_model_within_half_a_db(sensing, pluck, pickup):
-    s = clean(string__inharmonicity=0.0, excitation__position=pluck, pickup__0__position=pickup,
+    # open rule: pluck and pickup are fractions of the note's own length, some past a fretted neck's end
+    s = clean_open(string__inharmonicity=0.0, excitation__position=pluck, pickup__0__position=pickup,
               pickup__0__sensing=sensing)
     x = render_note(s, note=57, seconds=1.0)[:9600]
     k = np.arange(1, 25)
@@ -106,7 +116,8 @@ def test_harmonic_levels_match_the_model_within_half_a_db(sensing, pluck, pickup
 def test_pluck_at_a_quarter_removes_every_fourth_harmonic_in_the_audio():
     # Common practice among players (follows from sin(k pi p)): plucking at 1/n removes every n-th harmonic.
     # Only the 16 fitted modes are rendered, so the least-squares fit sees the whole signal.
-    s = clean(string__inharmonicity=0.0, excitation__position=0.25, pickup__0__position=0.1, string__modes=16)
+    # Open rule: the nulls sit at fractions of the note's own length.
+    s = clean_open(string__inharmonicity=0.0, excitation__position=0.25, pickup__0__position=0.1, string__modes=16)
     x = render_note(s, note=50, seconds=1.0)[:9600]
     f0 = 440 * 2 ** ((50 - 69) / 12)
     k = np.arange(1, 17)
@@ -120,7 +131,8 @@ def test_pluck_at_a_quarter_removes_every_fourth_harmonic_in_the_audio():
 
 
 def test_pickup_at_a_third_removes_every_third_harmonic_in_the_audio():
-    s = clean(string__inharmonicity=0.0, excitation__position=0.11, pickup__0__position=1 / 3,
+    # open rule: a third of the note's own length, past the default neck's last fret (0.28 of the scale)
+    s = clean_open(string__inharmonicity=0.0, excitation__position=0.11, pickup__0__position=1 / 3,
               pickup__0__sensing="displacement", string__modes=12)
     x = render_note(s, note=50, seconds=1.0)[:9600]
     f0 = 440 * 2 ** ((50 - 69) / 12)
@@ -139,7 +151,9 @@ def test_electronics_shape_the_harmonics_as_the_analog_low_pass():
     import scipy.signal
 
     f_r, q = 3000.0, 4.0
-    base = clean(string__inharmonicity=0.0, excitation__position=0.09, pickup__0__position=0.06)
+    # open rule: the fit takes partials at k 110 Hz, a harmonic string (B = 0 from string.inharmonicity;
+    # a fretted voice takes its string's B)
+    base = clean_open(string__inharmonicity=0.0, excitation__position=0.09, pickup__0__position=0.06)
     dry = render_note(base, note=45, seconds=1.0)[4800:14400]
     wet = render_note(base.with_values({"electronics.resonance_hz": f_r, "electronics.q": q}), note=45,
                       seconds=1.0)[4800:14400]
@@ -255,7 +269,8 @@ def test_full_pool_steals_the_quietest_voice():
 def test_a_burst_of_quiet_notes_does_not_steal_a_loud_held_one():
     # Stealing takes the quietest voice (common practice), also when the candidates were started
     # in the same block as the note that needs a voice: a flood of soft notes steals among itself.
-    engine = Engine(clean(voices=16), FS, 256)
+    # Open rule: 40 notes at once, some below the six-string's E2 (a fretted neck sounds six at most).
+    engine = Engine(clean_open(voices=16), FS, 256)
     engine.render([(0, 0xBF, 64, 127), (0, 0x9F, 45, 127)])  # pedal down, a loud note on channel 16
     for _ in range(4):
         engine.render()
@@ -306,7 +321,9 @@ def test_decayed_voices_retire():
 def test_long_sustain_does_not_drift():
     # The modal state is advanced in double precision: after 60 s the phase and level of a mode still
     # match exp((-sigma + i w) t) computed directly (to 1e-9 relative).
-    s = clean(string__t60_low=60.0, string__t60_high=60.0, string__inharmonicity=0.0)
+    # Open rule: the mode is at 440 Hz exactly, B = 0 from string.inharmonicity (a fretted voice takes
+    # its string's B, which puts its first mode at f0 sqrt(1 + B)).
+    s = clean_open(string__t60_low=60.0, string__t60_high=60.0, string__inharmonicity=0.0)
     engine = Engine(s, FS, 256)
     engine.render([(0, 0x90, 69, 127)])
     s0 = engine.pool.s[0, 0]  # state at the end of the first block
@@ -339,12 +356,14 @@ def test_long_sustain_audio_follows_the_double_precision_state():
 
 def test_pickup_move_while_ringing_is_smooth():
     # A live pickup move is smoothed and ramped: no sample-to-sample step beyond the signal's own slew.
-    s = clean(pickup__0__sensing="displacement")
+    # The move goes as far toward the neck as the default neck allows, from 0.15 to 0.27 of the scale
+    # (97 to 175 mm; the 22nd fret is at 181.8 mm by the 12-TET fret rule, common practice).
+    s = clean(pickup__0__sensing="displacement", pickup__0__position=0.15)
     engine = Engine(s, FS, 256)
     out = [engine.render([(0, 0x90, 45, 100)]).copy()]
     for i in range(40):
         if i == 10:
-            engine.set_value("pickup.0.position", 0.4)
+            engine.set_value("pickup.0.position", 0.27)
         out.append(engine.render().copy())
     y = np.concatenate(out)
     steady = np.max(np.abs(np.diff(y[1000:2560])))
@@ -369,7 +388,8 @@ def test_partial_bent_past_the_cut_off_falls_silent_and_returns_when_the_bend_do
     # changes a mode's frequency, not its vibration, so a partial pushed past the cut-off is silent
     # while there and comes back on return with the level its decay predicts (Chaigne & Askenfelt
     # 1994 loss law, as in damping()).
-    s = clean(string__inharmonicity=0.0, pickup__0__sensing="displacement", string__t60_high=7.5)
+    # Open rule: note 105 lies above the six-string's highest (86), and the partials are harmonic.
+    s = clean_open(string__inharmonicity=0.0, pickup__0__sensing="displacement", string__t60_high=7.5)
     f0, k_top = 3520.0, 6  # note 105; 6 x 3520 = 21120 Hz, just under 0.45 x 48000 = 21600 Hz
     centre = (0x00, 0x40)
     events = [(0.0, 0x90, 105, 120), (0.3, 0xE0, 0x7F, 0x7F), (0.6, 0xE0, *centre), (1.0, 0x80, 105, 0)]
@@ -398,7 +418,8 @@ def test_partial_bent_past_the_cut_off_falls_silent_and_returns_when_the_bend_do
 def test_a_live_pluck_change_shapes_the_next_note_and_leaves_the_ringing_one_alone():
     # Excitation parameters act on the next note (the host issue's rule): the ringing note keeps
     # the pluck it was born with, the next one has the new pluck's harmonics (Fletcher & Rossing 1998).
-    s = clean(string__inharmonicity=0.0, excitation__position=0.2, pickup__0__position=0.15,
+    # Open rule: the formulas take the pluck as a fraction of the note's own length, at the middle.
+    s = clean_open(string__inharmonicity=0.0, excitation__position=0.2, pickup__0__position=0.15,
               pickup__0__sensing="displacement")
     engine = Engine(s, FS, 256)
     first = [engine.render([(0, 0x90, 57, 127)]).copy()]

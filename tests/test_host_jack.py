@@ -31,6 +31,7 @@ from support.headless_host import HeadlessHost
 from support.jack_server import connect, connections, list_ports, wait_for_ports
 from support.midi_senders import RtmidiSender
 
+from rtvoice.engine import Settings, string_physics_of
 from rtvoice.engine.controls import default_entries
 from rtvoice.offline.wav import read_wav
 from rtvoice.physics.pickup import aperture_weights
@@ -199,7 +200,14 @@ def test_pickup_position_controller_changes_harmonics_as_predicted(host, tmp_pat
     """The mod wheel (CC1 + CC33, 14-bit) moves pickup 0 on a ringing note. With equal T60 at
     all frequencies, each harmonic's level relative to the fundamental changes between the two
     positions by the ratio of the pickup weights alone (pluck shape, velocity sensing, the
-    electronics and gain all cancel)."""
+    electronics and gain all cancel).
+
+    The default instrument plays A2 (45) at fret 5 of the low E string, the hand sitting at fret 3
+    (standard tuning E2 A2 D3 G3 B3 E4, common practice). The pickup, its aperture and the pluck stay
+    where they are in space, so the note sees them at distance / speaking length, 2^(5/12) times the
+    fraction of the scale (12-TET fret rule, common practice), and its partials lie at
+    k f0 sqrt(1 + B k^2) (Fletcher 1964) with the string's B grown by 2^(5/6) (B ~ 1/L^2 at one
+    tension)."""
     entry = next(e for e in default_entries() if e.get("cc") == 1)
     va, vb = _v14(0.25, entry), _v14(0.10, entry)
 
@@ -216,15 +224,18 @@ def test_pickup_position_controller_changes_harmonics_as_predicted(host, tmp_pat
     x = undisturbed_take(host, take)
     rate, i = host.rate, onset(x)
     f0 = equal_tempered_hz(45)
+    fret = 5  # A2 on the low E string (string 6)
+    longer = 2 ** (fret / 12)  # scale length / speaking length
+    b = string_physics_of(Settings.defaults(), 6).inharmonicity * 2 ** (fret / 6)
     k = np.arange(1, 9)
-    freqs = k * f0
+    freqs = k * f0 * np.sqrt(1 + b * k**2)
     sig = np.full(k.size, SIGMA)
     rel_a = relative_levels_through_steps(window(x, rate, i, 0.2, 0.8), rate, freqs, sig)
     rel_b = relative_levels_through_steps(window(x, rate, i, 1.2, 1.8), rate, freqs, sig)
-    width = 0.02  # the default pickup aperture
-    pa, pb = _position(va, entry), _position(vb, entry)
+    width = 0.02 * longer  # the default pickup aperture, 0.02 of the scale
+    pa, pb = _position(va, entry) * longer, _position(vb, entry) * longer
     wa, wb = np.abs(aperture_weights(k, pa, width)), np.abs(aperture_weights(k, pb, width))
-    pluck = np.abs(np.sin(k * np.pi * 0.2))  # the default pluck at 0.2 leaves out k = 5
+    pluck = np.abs(np.sin(k * np.pi * 0.2 * longer))  # the default pluck at 0.2 of the scale
     usable = (wa > 0.15 * wa.max()) & (wb > 0.15 * wb.max()) & (pluck > 0.2)
     assert usable.sum() >= 4
     measured_db = 20 * np.log10(rel_b / rel_a)

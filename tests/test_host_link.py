@@ -3,7 +3,10 @@
 No audio server is needed here (``audio_device='none'``, no MIDI ports), so these run
 everywhere; the JACK tests (test_host_jack.py) cover audio and MIDI ports.
 12-TET: f = 440 * 2^((n - 69) / 12) (MIDI 1.0 note numbers, A4 = 440 Hz per ISO 16:1975);
-stiff string: f_1 = f0 sqrt(1 + B) (Fletcher, JASA 36, 1964).
+stiff string: f_1 = f0 sqrt(1 + B) (Fletcher, JASA 36, 1964). The default instrument plays a note
+at a fret n of one of its strings (standard tuning E2 A2 D3 G3 B3 E4, the string where the note lies
+nearest the hand's fret; common practice), where B is the string's open B times 2^(n/6) (B ~ 1/L^2 at
+one tension, with the speaking length L 2^(-n/12) of the 12-TET fret rule).
 """
 
 from __future__ import annotations
@@ -18,6 +21,7 @@ import pytest
 from analysis import peak_frequency_hz
 from support.describe import failing
 
+from rtvoice.engine import string_physics_of
 from rtvoice.engine.controls import default_entries
 from rtvoice.engine.output import CEILING
 from rtvoice.engine.settings import Settings, SettingsError
@@ -55,7 +59,8 @@ def test_engine_plays_a_note_and_the_snapshot_shows_it(link):
     snap = _wait(lambda: (s := link.snapshot()).voices and s.f0_hz > 0 and s)
     assert snap.note == 57
     assert snap.velocity == 113  # the UI predicts the attack at the voice's own velocity
-    b = link.settings.get("string.inharmonicity")
+    assert (snap.string, snap.fret) == (3, 2)  # A3 at fret 2 of the G string, nearest the hand at fret 3
+    b = string_physics_of(link.settings, 3).inharmonicity * 2 ** (2 / 6)
     assert snap.f0_hz == pytest.approx(440 * 2 ** ((57 - 69) / 12) * math.sqrt(1 + b), rel=1e-9)
     n = Settings.defaults().get("string.modes")
     assert snap.mode_levels_db.shape == snap.mode_freqs_hz.shape == (min(n, 128),)
@@ -76,8 +81,8 @@ def test_set_value_is_validated_in_the_caller(link):
         link.set_value("pickup.0.position", 1.5)
     with pytest.raises(SettingsError):
         link.set_value("no.such.thing", 1)
-    link.set_value("pickup.0.position", 0.3)
-    assert link.settings.get("pickup.0.position") == 0.3
+    link.set_value("pickup.0.position", 0.25)  # 162 mm: within the default neck (last fret at 181.8 mm)
+    assert link.settings.get("pickup.0.position") == 0.25
     link.set_value("pickup.0.position", Settings.defaults().get("pickup.0.position"))
     with pytest.raises(MidiMessageError):
         link.note_on(128)
@@ -198,7 +203,8 @@ def test_mpe_option_configures_the_lower_zone():
         mpe.send_midi(0xE1, 0, 96)  # +4096 of 8192: +24 semitones
         mpe.note_on(45, 100, channel=1)
         snap = _wait(lambda: (s := mpe.snapshot()).voices and s.f0_hz > 0 and s)
-        b = Settings.defaults().get("string.inharmonicity")
+        assert (snap.string, snap.fret) == (6, 5)  # A2 at fret 5 of the low E string, nearest the hand at 3
+        b = string_physics_of(Settings.defaults(), 6).inharmonicity * 2 ** (5 / 6)
         assert snap.f0_hz == pytest.approx(440 * 2 ** ((45 + 24 - 69) / 12) * math.sqrt(1 + b), rel=1e-6)
     finally:
         mpe.close()

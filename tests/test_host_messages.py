@@ -128,8 +128,9 @@ def test_unknown_and_malformed_messages_are_counted_and_dropped_by_the_link(monk
         assert seen == [msgs.Device("a test's device line")]
         assert link.dropped_messages == len(bad) + 1
         assert link.alive()
-        link.set_value("pickup.0.position", 0.3)  # and the link still works both ways
-        assert link.settings.get("pickup.0.position") == 0.3
+        # and the link still works both ways (0.25 of the scale, 162 mm: within the default neck)
+        link.set_value("pickup.0.position", 0.25)
+        assert link.settings.get("pickup.0.position") == 0.25
         engine_end.close()
     finally:
         link.close()

@@ -46,7 +46,9 @@ def test_kept_tables_play_exactly_as_tables_built_afresh():
     settings = Settings.defaults().with_values({"voices": 6})
     keeping, building = Engine(settings, FS, 128), Engine(settings, FS, 128)
     building.voice_renderer.tables = NoteTables(building.pool, 0)
-    building.voice_renderer.starts = NoteStarts(building.pool.modes, FS, keep=False)
+    # as many places as the engine's own rows hold (on a fretted neck a place is a string and fret, not a note)
+    building.voice_renderer.starts = NoteStarts(building.pool.modes, FS, keep=False,
+                                                places=building.voice_renderer.starts.places)
     a, b = play(keeping), play(building)
     assert keeping.voice_renderer.tables.hits > 50 and building.voice_renderer.tables.hits == 0
     assert keeping.voice_renderer.starts.hits > 50 and building.voice_renderer.starts.hits == 0

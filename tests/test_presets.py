@@ -29,7 +29,9 @@ def test_factory_presets_are_valid_distinct_and_at_least_eight():
 
 
 def test_save_then_load_round_trips(user_home):
-    s = Settings.defaults().with_values({"pickup.1.position": 0.31, "excitation.shape": [[0.2, 0.5], [0.4, 1.0]]})
+    # pickup 2 at 0.27 of the scale (175 mm): within the default neck, whose 22nd fret lies 181.8 mm from
+    # the saddle (12-TET fret rule, common practice)
+    s = Settings.defaults().with_values({"pickup.1.position": 0.27, "excitation.shape": [[0.2, 0.5], [0.4, 1.0]]})
     path = presets.save_preset(s, "my-sound")
     assert path.parent == user_home / "presets"
     back = presets.load_preset("my-sound")

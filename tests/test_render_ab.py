@@ -115,7 +115,8 @@ def test_pickup_at_a_quarter_silences_every_fourth_harmonic_and_at_a_third_every
     # A point pickup at x senses mode k as sin(k pi x), so it misses every n-th harmonic when x = 1/n
     # (Paiva, Pakarinen & Valimaki, "Acoustics and Modeling of Pickups", JAES 60(10), 2012; common practice).
     # No stiffness, so harmonic k sits at k f0; the pluck at 0.13 has no node among the first eight.
-    common = ["string.inharmonicity=0", "pickup.0.width=0", "excitation.position=0.13"]
+    # Open rule: a third of the string lies over a fretted neck, and string.inharmonicity is the note's B.
+    common = ["instrument.assign=open", "string.inharmonicity=0", "pickup.0.width=0", "excitation.position=0.13"]
     sound_a = [*common, "pickup.0.position=0.25"]
     sound_b = [*common, "pickup.0.position=0.3333333333333333"]
     argv = ["render", *NOTE, "-o", str(tmp_path / "pos.wav")]
@@ -186,7 +187,10 @@ def test_two_presets_from_a_midi_file_as_a_separate_process(tmp_path):
     [
         (["--output-b", "{folder}/b.wav"], "A and B are the same sound"),
         (["--ab", "{preset_file}"], "A and B are the same sound"),  # the defaults, written out as a preset
-        (["--set-b", "string.scale_length_mm=700"], "differ only in string.scale_length_mm"),  # mm labels only
+        # mm labels only: open strings, whose places are fractions of each note's own length (on a fretted
+        # neck the scale sets the strings' tension and stiffness, so the sound changes with it)
+        (["--set", "instrument.assign=open", "--set-b", "instrument.assign=open", "--set-b",
+          "string.scale_length_mm=700"], "differ only in string.scale_length_mm"),
     ],
 )
 def test_identical_sounds_warn_and_still_write_both(tmp_path, capsys, sound_b, needle):

@@ -24,7 +24,7 @@ from rtvoice.engine.presets import load_preset
 from rtvoice.engine.settings import Settings
 from rtvoice.offline.render import note_events, render_events
 from rtvoice.survey import Placement, SurveyError, placement_energies, survey, survey_grid
-from rtvoice.survey.csvout import COLUMNS
+from rtvoice.survey.csvout import COLUMNS, FRETTED_COLUMNS
 from rtvoice.survey.inputs import parse_grid, parse_notes, parse_placement
 from rtvoice.survey.model import EngineModel
 from rtvoice.survey.verify import (
@@ -48,7 +48,8 @@ def rtvoice(*args, prelude=""):
 
 
 def ideal(**changes) -> Settings:
-    """Point pickup, point pluck, no electronics: the textbook string."""
+    """Point pickup, point pluck, no electronics: the textbook string, an open string of its own (the
+    sine zeros below are at fractions of the note's own length, anywhere along it)."""
     base = {
         "pickup.0.width": 0.0,
         "excitation.width": 0.0,
@@ -56,7 +57,7 @@ def ideal(**changes) -> Settings:
         "electronics.resonance_hz": 0.0,
         "string.modes": 40,
     }
-    return Settings.defaults().with_values({**base, **changes})
+    return open_sound(None).with_values({**base, **changes})
 
 
 # -- grids and other input ------------------------------------------------------------
@@ -182,7 +183,8 @@ def test_centroid_rises_as_the_pickup_moves_toward_the_bridge(preset):
 
 def test_centroid_rises_as_the_pluck_moves_toward_the_bridge():
     # Plucking nearer the bridge gives a brighter tone (common practice among players).
-    result = survey(Settings.defaults(), [40, 64], [0.03, 0.06, 0.12, 0.24, 0.48], [0.3, 0.2, 0.15, 0.1])
+    # Open strings, as for the pickup above: the pickups reach nearly half of each note's length.
+    result = survey(open_sound(None), [40, 64], [0.03, 0.06, 0.12, 0.24, 0.48], [0.3, 0.2, 0.15, 0.1])
     steps_hz = np.diff(result.centroid_hz, axis=-2)
     assert np.all(steps_hz > 0), "centroid steps toward the bridge (Hz), want > 0: " + failing(steps_hz > 0, steps_hz)
 
@@ -258,7 +260,9 @@ def test_mode_fit_agrees_with_an_independent_least_squares_fit():
     # The verify fit (closed-form normal equations) against numpy's lstsq on the explicit basis
     # of the same damped sinusoids; then the output filters' own ringing (DC blocker, coil and
     # cable), added to the basis, leaves nothing of the engine's audio unexplained.
-    settings = Settings.defaults()
+    # Open rule: the model's modes of note 52 as an open string of its own, which the engine then plays
+    # (the fit, not the instrument, is checked here; fretted notes are verified in test_survey_neck.py).
+    settings = open_sound(None)
     audio, limited = render_note(settings, 52, 0.5, FS, 256)
     model = EngineModel(settings, FS)
     modes = model.note_modes(52)
@@ -297,7 +301,8 @@ def test_verify_rendered_points_stay_within_tolerance(preset):
 def test_verify_notices_a_model_that_differs_from_the_engine():
     # A map that is not what the engine plays must fail verification: computed for a
     # displacement pickup but labelled velocity, so the engine renders a brighter tone.
-    result = survey(Settings.defaults(), [40], [0.1, 0.3], sensings=["displacement"])
+    # on the default neck: pickups at 65 and 162 mm, short of the last fret at 181.8 mm (12-TET fret rule)
+    result = survey(Settings.defaults(), [40], [0.1, 0.25], sensings=["displacement"])
     forged = dataclasses.replace(result, sensings=("velocity",))
     rows = verify(forged, [(0, 0, 0, 0, 0)], jobs=1)
     assert not rows[0].within_tolerance
@@ -316,9 +321,9 @@ def test_csv_has_the_documented_columns_and_one_row_per_point(tmp_path, capsys):
             "--note",
             "52",
             "--pickup",
-            "20:320:20mm",
+            "20:170:10mm",  # 16 places, all short of the default neck's last fret at 181.8 mm
             "--pluck",
-            "0.1:0.3:0.1",
+            "0.05:0.25:0.1",
             "--sensing",
             "velocity",
             "--sensing",
@@ -341,7 +346,8 @@ def test_csv_has_the_documented_columns_and_one_row_per_point(tmp_path, capsys):
         "level_db",
         "missing",
     ]
-    assert list(rows[0]) == list(COLUMNS) and set(required) <= set(COLUMNS)
+    # The default six-string: two columns, string and fret, follow the note (README, "The CSV columns").
+    assert list(rows[0]) == list(FRETTED_COLUMNS) and set(required) <= set(COLUMNS)
     assert len(rows) == 2 * 2 * 3 * 16
     for row in rows:
         assert float(row["pickup_position"]) * SCALE_MM == pytest.approx(float(row["pickup_position_mm"]), abs=0.01)
@@ -349,6 +355,9 @@ def test_csv_has_the_documented_columns_and_one_row_per_point(tmp_path, capsys):
         assert float(row["centroid_ratio"]) == pytest.approx(float(row["centroid_hz"]) / float(row["f1_hz"]), rel=1e-3)
     by_note = {r["note"] for r in rows}
     assert by_note == {"40", "52"}
+    # Standard tuning E2 A2 D3 G3 B3 E4 (common practice): E2 is the open low string; E3 lies nearest the
+    # hand at fret 3 at fret 2 of the D string (string 4).
+    assert {(r["note"], r["string"], r["fret"]) for r in rows} == {("40", "6", "0"), ("52", "4", "2")}
 
 
 def test_plots_are_written_as_png(tmp_path, capsys):
@@ -361,9 +370,9 @@ def test_plots_are_written_as_png(tmp_path, capsys):
             "--note",
             "40",
             "--pickup",
-            "10:320:10mm",
+            "10:180:10mm",  # within the default neck (its last fret lies 181.8 mm from the saddle)
             "--pluck",
-            "20:320:20mm",
+            "20:180:20mm",
             "-o",
             str(out),
             "--plot",
@@ -385,7 +394,8 @@ def test_plots_are_written_as_png(tmp_path, capsys):
 
 def test_comparison_table_lists_the_sine_zero(tmp_path, capsys):
     # Pickup at 1/4 of the length: harmonic 4 is silenced (sin(4 pi / 4) = 0, common practice),
-    # while a pickup at 1/5 keeps it.
+    # while a pickup at 1/5 keeps it. E2 (40) is the open low string of the default six-string, so its
+    # length is the scale; the pluck at 0.27 (175 mm) lies short of the last fret (181.8 mm).
     out = tmp_path / "map.csv"
     rc = main(
         [
@@ -399,8 +409,8 @@ def test_comparison_table_lists_the_sine_zero(tmp_path, capsys):
             "--set",
             "pickup.0.width=0",
             "--compare",
-            "0.25,0.3",
-            "0.2,0.3",
+            "0.25,0.27",
+            "0.2,0.27",
         ]
     )
     assert rc == 0
@@ -447,8 +457,9 @@ def test_plain_install_draws_a_png_without_a_display(tmp_path):
     env = {k: v for k, v in os.environ.items() if k not in ("DISPLAY", "WAYLAND_DISPLAY")}
     env.update(OPENBLAS_NUM_THREADS="1", MPLBACKEND="tkagg")
     png = tmp_path / "map.png"
-    r = subprocess.run([sys.executable, "-m", "rtvoice.cli", "survey", "--note", "40", "--pickup", "0.05:0.45:0.05",
-                        "--pluck", "0.1:0.4:0.1", "-o", str(tmp_path / "map.csv"), "--plot", str(png)],
+    # (places within the default neck, whose last fret lies at 0.28 of the scale)
+    r = subprocess.run([sys.executable, "-m", "rtvoice.cli", "survey", "--note", "40", "--pickup", "0.03:0.27:0.03",
+                        "--pluck", "0.05:0.25:0.05", "-o", str(tmp_path / "map.csv"), "--plot", str(png)],
                        capture_output=True, text=True, env=env, timeout=300)
     assert r.returncode == 0, r.stderr
     data = png.read_bytes()
@@ -469,9 +480,9 @@ def test_cli_verify_reports_differences_within_tolerance(tmp_path, capsys):
             "--note",
             "45",
             "--pickup",
-            "0.04:0.4:0.04",
+            "0.03:0.27:0.03",  # within the default neck (its last fret lies at 0.28 of the scale)
             "--pluck",
-            "0.1:0.4:0.1",
+            "0.1:0.25:0.05",
             "-o",
             str(out),
             "--verify",

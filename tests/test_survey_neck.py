@@ -315,7 +315,9 @@ def test_the_map_may_reach_over_the_neck_only_when_asked_and_never_past_the_note
     over = [0.1, 0.4]  # 0.4 of 648 mm lies past the last fret (22 frets: 181.8 mm from the saddle)
     with pytest.raises(SurveyError, match="over the neck"):
         survey(settings, [64], over)  # string 1, open: the settings refuse a pickup there
-    plane = survey_grid(settings, 64, over)  # the UI's map: on the open string's length, so it is heard
+    with pytest.raises(SurveyError, match="over the neck"):
+        survey_grid(settings, 64, over)  # the map keeps to what the settings take, unless asked
+    plane = survey_grid(settings, 64, over, past_last_fret=True)  # on the open string's length: heard
     assert np.all(np.isfinite(plane.centroid_hz))
     with pytest.raises(SurveyError, match="past the end of note 76"):
         survey(settings, [76], [0.1, 0.55], places=[place_at(settings, 1, 12)], past_last_fret=True)

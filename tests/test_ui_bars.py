@@ -9,6 +9,11 @@ Reference formulas (outside the project):
   "Acoustics and Modeling of Pickups", JAES 60(10), 768, 2012).
 Moving one pickup changes nothing else in the prediction, so every harmonic's predicted
 level must move by exactly 20 log10 of the ratio of those weights.
+
+The checks of those formulas in fractions of L play open strings (``instrument.assign = "open"``:
+the string view, every note an open string of its own, a pickup anywhere along it); the default
+six-string shows its neck instead and sees each place at distance / speaking length
+(tests/test_ui_instrument.py checks its bars at the sounding fret).
 """
 
 from __future__ import annotations
@@ -16,14 +21,30 @@ from __future__ import annotations
 import numpy as np
 import pytest
 from support.describe import failing
+from support.sounds import open_strings
 from support.ui import fresh, run, screen_text, wait_for
 
 from rtvoice.physics.pickup import aperture_weights
 from rtvoice.ui.app import RtvoiceApp
 from rtvoice.ui.prediction import FLOOR_DB
+from rtvoice.ui.session import SoundSession
 from rtvoice.ui.widgets.bars import AXIS, COLUMNS_PER_HARMONIC, NULL_MARK
 
 pytestmark = pytest.mark.usefixtures("home")  # a user folder of its own for every test (conftest.py)
+
+
+def open_strings_app(link) -> RtvoiceApp:
+    """The app on the default sound with every note an open string of its own (the string view)."""
+    return RtvoiceApp(fresh(link), SoundSession(open_strings()), safety_note=False)
+
+
+async def settled(pilot, app) -> None:
+    """Wait until nothing rings: a voice still fading from the shared link's earlier sound (a fretted
+    note, whose stiffness is its string's) would otherwise set the pitch the bars predict for, and
+    its retiring mid-test would change every bar, not only by the pickup's weight."""
+    await pilot.pause()
+    assert await wait_for(pilot, lambda: app._snap is not None and app._snap.voices == 0)
+    await pilot.pause()
 
 
 def published_pickup_weight(k: np.ndarray, x: float, w: float) -> np.ndarray:
@@ -38,9 +59,9 @@ def level_change_db(k: np.ndarray, x0: float, w0: float, x1: float, w1: float) -
 
 def test_moving_the_pickup_with_keys_moves_each_predicted_bar_as_the_pickup_formula_says(link):
     async def body():
-        app = RtvoiceApp(fresh(link), safety_note=False)
+        app = open_strings_app(link)
         async with app.run_test(size=(80, 24)) as pilot:
-            await pilot.pause()
+            await settled(pilot, app)
             await pilot.press("down")  # on the string: select pickup 1
             assert app.string_view.element.position_name == "pickup.0.position"
             before, s0 = app.bars.predicted_db.copy(), app.session.settings
@@ -72,9 +93,9 @@ def test_a_pickup_at_a_quarter_of_the_string_shows_every_fourth_harmonic_as_sile
     (Fletcher & Rossing 1998, mode shapes); the bars mark them with the null mark."""
 
     async def body():
-        app = RtvoiceApp(fresh(link), safety_note=False)
+        app = open_strings_app(link)
         async with app.run_test(size=(80, 24)) as pilot:
-            await pilot.pause()
+            await settled(pilot, app)
             await pilot.press("down", "tab")  # select pickup 1, then into the parameter list
             assert app.params.selected_name == "pickup.0.position"
             await pilot.press("enter")
@@ -108,9 +129,9 @@ def test_a_pickup_at_a_quarter_of_the_string_shows_every_fourth_harmonic_as_sile
 
 def test_widening_the_aperture_changes_the_bars_by_the_aperture_sinc(link):
     async def body():
-        app = RtvoiceApp(fresh(link), safety_note=False)
+        app = open_strings_app(link)
         async with app.run_test(size=(120, 40)) as pilot:
-            await pilot.pause()
+            await settled(pilot, app)
             await pilot.press("down")
             before, s0 = app.bars.predicted_db.copy(), app.session.settings
             await pilot.press(*["right_square_bracket"] * 12)  # 12 x 1 mm wider
@@ -170,9 +191,9 @@ def test_live_bars_of_a_ringing_note_are_the_predicted_attack_less_each_harmonic
 
 def test_dragging_the_pickup_with_the_mouse_moves_it_and_the_bars_follow(link):
     async def body():
-        app = RtvoiceApp(fresh(link), safety_note=False)
+        app = open_strings_app(link)
         async with app.run_test(size=(80, 24)) as pilot:
-            await pilot.pause()
+            await settled(pilot, app)
             view = app.string_view
             start = view.column_of(0.15)  # where pickup 1 is drawn
             target = view.column_of(0.40)

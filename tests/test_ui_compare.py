@@ -5,9 +5,9 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from support.sounds import open_strings
 from support.ui import fresh, run, screen_text
 
-from rtvoice.engine.settings import Settings
 from rtvoice.ui.app import RtvoiceApp
 from rtvoice.ui.compare import compare_slots
 from rtvoice.ui.prediction import predicted_levels_db
@@ -22,10 +22,13 @@ pytestmark = pytest.mark.usefixtures("home")  # a user folder of its own for eve
 # (Fletcher & Rossing, The Physics of Musical Instruments, 1998, ch. 2) and velocity sensing
 # weights them by k (Horton & Moore, Am. J. Phys. 77(2), 2009), so the first 24 harmonics stay
 # within 40 dB of each other but for the pickups' own nulls.
+# Open strings (every note an open string of its own, drawn on the string view): the nulls sit at
+# fractions of the note's own length, string.inharmonicity is its B (0: harmonic), and a pickup at 1/3
+# lies past a fretted neck's last fret (the A/B view on the neck: tests/test_ui_instrument.py).
 BASE = {"pickup.0.width": 0.0, "pickup.0.sensing": "velocity", "excitation.position": 0.02,
         "excitation.width": 0.0, "string.inharmonicity": 0.0}
-QUARTER = Settings.defaults().with_values({**BASE, "pickup.0.position": 0.25})
-THIRD = Settings.defaults().with_values({**BASE, "pickup.0.position": 1 / 3})
+QUARTER = open_strings().with_values({**BASE, "pickup.0.position": 0.25})
+THIRD = open_strings().with_values({**BASE, "pickup.0.position": 1 / 3})
 
 
 def test_the_comparison_names_the_harmonics_each_placement_lacks():

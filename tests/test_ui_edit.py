@@ -63,6 +63,7 @@ def test_a_valid_typed_value_reaches_the_engine_and_marks_the_sound_changed(link
         app = RtvoiceApp(fresh(link), safety_note=False)
         async with app.run_test(size=(80, 24)) as pilot:
             await pilot.pause()
+            await pilot.press("tab", "tab")  # on the default's neck: pluck -> hand -> pickup 1
             await type_value(pilot, app, "pickup.0.position", "120mm")
             await pilot.pause()
             return app.session.settings, link.settings, screen_text(app)
@@ -71,7 +72,7 @@ def test_a_valid_typed_value_reaches_the_engine_and_marks_the_sound_changed(link
     assert ui.get("pickup.0.position") == pytest.approx(120 / 648)
     assert engine_side.get("pickup.0.position") == pytest.approx(120 / 648)
     assert MODIFIED_MARK in text
-    assert "120mm" in text.replace(" ", "")  # the string readout in millimetres
+    assert "pickup 1 120.0 mm from the saddle" in text  # the neck's readout of its pickup, in millimetres
 
 
 def test_steps_move_by_one_percent_of_the_range_and_stop_at_its_ends(link):
@@ -103,7 +104,8 @@ def test_ab_slots_flip_between_two_sounds_while_a_note_rings(link):
         async with app.run_test(size=(80, 24)) as pilot:
             await pilot.pause()
             await pilot.press("ctrl+t")  # to B (starts as a copy of A)
-            await pilot.press("down", "shift+right", "shift+right")  # B: pickup 20 mm further out
+            # B: pickup 1 (on the default's neck: pluck -> hand -> pickup 1) 20 mm further from the saddle
+            await pilot.press("tab", "tab", "shift+right", "shift+right")
             b_position = app.session.settings.get("pickup.0.position")
             await pilot.press("z")  # pluck
             await wait_for(pilot, lambda: app._snap is not None and app._snap.note == 40)

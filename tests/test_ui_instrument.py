@@ -28,6 +28,7 @@ import numpy as np
 import pytest
 import scipy.signal
 from support.describe import failing
+from support.sounds import open_strings
 from support.ui import fresh, run, screen_text, wait_for
 
 from rtvoice.engine import OUTPUT_SCALE, Settings, apply_assignments
@@ -44,6 +45,7 @@ pytestmark = pytest.mark.usefixtures("home")  # a user folder of its own for eve
 
 SCALE_MM = 648.0
 HAND = Settings.defaults().with_values({"instrument.assign": "hand"})
+OPEN = open_strings()
 CHANNEL = Settings.defaults().with_values({"instrument.assign": "channel"})
 
 
@@ -80,7 +82,7 @@ def test_a_fretted_instrument_shows_its_neck_where_the_open_rule_shows_one_strin
             await pilot.pause()
             out["fretted"] = (app.neck_view.display, app.string_view.display, screen_text(app),
                               isinstance(app.focused, NeckView))
-        app = RtvoiceApp(fresh(link), safety_note=False)
+        app = app_with(link, OPEN)  # the default sound with every note an open string of its own
         async with app.run_test(size=(120, 40)) as pilot:
             await pilot.pause()
             out["open"] = (app.neck_view.display, app.string_view.display, screen_text(app))

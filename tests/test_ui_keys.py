@@ -23,9 +23,10 @@ def test_every_arrow_press_moves_the_pickup_one_millimetre_even_in_a_burst(link)
         app = RtvoiceApp(fresh(link), safety_note=False)
         async with app.run_test(size=(80, 24)) as pilot:
             await pilot.pause()
-            await pilot.press("down")  # pickup 1 (the pluck is first)
+            await pilot.press("tab", "tab")  # on the default's neck: pluck -> hand -> pickup 1
+            assert app.neck_view.selected == "pickup 1"
             start = app.session.settings.get("pickup.0.position")
-            await pilot.press(*["left"] * 20)
+            await pilot.press(*["left"] * 20)  # towards the saddle
             await pilot.pause()
             after20 = app.session.settings.get("pickup.0.position")
             await pilot.press(*["right"] * 5)
@@ -121,13 +122,27 @@ def test_pickups_are_numbered_from_one_wherever_a_person_reads_them():
 
 
 def test_added_pickups_go_to_distinct_places_not_stacked_on_one_spot():
+    from support.sounds import open_strings
+
     from rtvoice.engine.settings import Settings
 
+    # Open strings: a pickup may sit anywhere along each note's own length.
     for start in (0.15, 0.062, 0.33):
-        s = Settings.defaults().with_values({"pickup.0.position": start}).with_pickup_count(4)
+        s = open_strings().with_values({"pickup.0.position": start}).with_pickup_count(4)
         places = sorted(p["position"] for p in s.pickups)
         assert min(b - a for a, b in zip(places, places[1:], strict=False)) >= 0.03 - 1e-12, places
         assert s.pickups[0]["position"] == start  # the existing pickup stays where it was
+    # The default six-string: added pickups go short of its last fret too, the 22nd, 648 2^(-22/12) =
+    # 181.8 mm from the saddle (12-TET fret rule, common practice), so the settings stay ones that a
+    # later edit, the engine and a saved preset accept.
+    last_fret = 2 ** (-22 / 12)
+    for start in (0.15, 0.062, 0.27):
+        s = Settings.defaults().with_values({"pickup.0.position": start}).with_pickup_count(4)
+        places = sorted(p["position"] for p in s.pickups)
+        assert min(b - a for a, b in zip(places, places[1:], strict=False)) >= 0.03 - 1e-12, places
+        assert s.pickups[0]["position"] == start
+        assert places[-1] < last_fret, places
+        assert s.with_values({"voices": 8}).get("voices") == 8  # a later edit is not refused
 
 
 def test_a_climbing_xrun_count_is_explained_by_whose_callback_was_late(link):

@@ -19,6 +19,11 @@ from rtvoice.ui.screens.notes import HelpScreen, SafetyScreen
 
 pytestmark = pytest.mark.usefixtures("home")  # a user folder of its own for every test (conftest.py)
 
+SCALE_MM = 648.0
+#: Where a controller stops a pickup on the default neck: 1 mm short of its 22nd fret, which lies
+#: 648 2^(-22/12) = 181.84 mm from the saddle (12-TET fret rule, common practice).
+NECK_END_MM = SCALE_MM * 2 ** (-22 / 12) - 1.0
+
 
 def test_keys_pluck_notes_octave_keys_shift_them_and_space_mutes_everything(link):
     async def body():
@@ -26,20 +31,27 @@ def test_keys_pluck_notes_octave_keys_shift_them_and_space_mutes_everything(link
         async with app.run_test(size=(80, 24)) as pilot:
             await pilot.pause()
             seen = []
-            await pilot.press("a")  # second row, open string: A2
+            await pilot.press("a")  # second row (the default six-string's string 5), open: A2
             seen.append(await wait_for(pilot, lambda: app._snap.note == 45))
-            await pilot.press("greater_than_sign", "z")  # an octave up, bottom row open: E3
+            # 12 frets along the strings (an octave up; README): the bottom row's first key, the low E
+            # string at fret 12, is E3 (standard tuning, 12-TET fret rule; common practice)
+            await pilot.press("greater_than_sign")
+            shifted = app.message_text
+            await pilot.press("z")
             seen.append(await wait_for(pilot, lambda: app._snap.note == 52))
             rings_without_release = app._snap.voices >= 1  # no key release was ever sent
             line = screen_text(app).splitlines()[0]
             await pilot.press("space")
             silent = await wait_for(pilot, lambda: app._snap.voices == 0)
-            return seen, rings_without_release, line, silent, app.message_text
+            return seen, rings_without_release, shifted, line, silent, app.message_text
 
-    seen, rings, line, silent, message = run(body())
+    seen, rings, shifted, line, silent, message = run(body())
     assert seen == [True, True]
     assert rings
-    assert "oct +1" in line
+    # The rows now play frets 12-21 (said on the message line; the top line leaves the keys out first
+    # when it is narrow, and names the note ringing).
+    assert shifted == "keys: strings 6-3, frets 12-21"
+    assert "ringing E3" in line
     assert silent and message == "all strings muted"
 
 
@@ -48,7 +60,7 @@ def test_learn_maps_the_next_controller_sent_through_the_engine_and_saves_it_wit
         app = RtvoiceApp(fresh(link), safety_note=False)
         async with app.run_test(size=(80, 24)) as pilot:
             await pilot.pause()
-            await pilot.press("down", "ctrl+l")  # pickup 1 on the string, then learn
+            await pilot.press("tab", "tab", "ctrl+l")  # pickup 1 on the neck (pluck -> hand -> pickup 1), learn
             learning_line = screen_text(app).splitlines()[0]
             link.send_midi(0xB2, 80, 64)  # CC80 on MIDI channel 3, as from a MIDI input
             learned = await wait_for(pilot, lambda: app.message_text.startswith("learned"))
@@ -56,22 +68,25 @@ def test_learn_maps_the_next_controller_sent_through_the_engine_and_saves_it_wit
             app.params.select_name("pickup.0.position")
             await pilot.pause()
             table_text = screen_text(app)
-            link.send_midi(0xB2, 80, 127)  # the controller now drives the pickup
-            moved = await wait_for(pilot, lambda: app.session.settings.get("pickup.0.position") == 0.995)
+            link.send_midi(0xB2, 80, 127)  # the controller now drives the pickup, to the top of its range
+            moved = await wait_for(pilot, lambda: app.session.settings.get("pickup.0.position") == pytest.approx(
+                NECK_END_MM / SCALE_MM, abs=1e-12))
             await pilot.press("ctrl+s")
             assert isinstance(app.screen, PromptScreen)
             await pilot.press(*"with-cc80", "enter")
             await pilot.pause()
             await pilot.press("enter")  # the description, as it is
             await pilot.pause()
-            return learning_line, learned, learned_message, table_text, moved, app.string_view.settings
+            return learning_line, learned, learned_message, table_text, moved, app.neck_view.picture
 
     learning_line, learned, message, table, moved, drawn = run(body())
-    assert "LEARN pickup 1 position" in learning_line  # pickups counted from 1, as on the string view
+    assert "LEARN pickup 1 position" in learning_line  # pickups counted from 1, as on the neck view
     assert learned and "CC80" in message and "pickup 1 position" in message
     row = next(line for line in table.splitlines() if "position" in line and "pickup 1" in line)
     assert "CC80 ch3" in row
-    assert moved and drawn.get("pickup.0.position") == 0.995  # the string is redrawn there too
+    # The top of the learned range (0.995 of the scale) lies over the default neck: the controller
+    # carries the pickup no further than 1 mm short of the last fret, and the neck is redrawn there too.
+    assert moved and drawn.pickups[0].bass_mm == pytest.approx(NECK_END_MM, abs=1e-9)
     saved = tomllib.loads((home / "presets" / "with-cc80.toml").read_text())
     assert {"target": "pickup.0.position", "source": "cc", "cc": 80, "bits": 7, "channel": 3,
             "low": 0.005, "high": 0.995, "curve": "linear"} in saved["control"]
@@ -180,7 +195,7 @@ def test_a_learned_mapping_belongs_to_the_sound_it_was_learned_in(link):
         app = RtvoiceApp(fresh(link), safety_note=False)
         async with app.run_test(size=(80, 24)) as pilot:
             await pilot.pause()
-            await pilot.press("down", "ctrl+l")
+            await pilot.press("tab", "tab", "ctrl+l")  # pickup 1 on the default's neck (pluck -> hand -> pickup 1)
             link.send_midi(0xB0, 81, 10)
             await wait_for(pilot, lambda: app.message_text.startswith("learned"))
             in_a = [c for c in link.controls() if c.get("cc") == 81]

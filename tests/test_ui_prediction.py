@@ -21,6 +21,7 @@ import numpy as np
 import pytest
 import scipy.signal
 from support.describe import failing
+from support.sounds import open_strings
 
 from rtvoice.engine.renderer import OUTPUT_SCALE
 from rtvoice.engine.settings import Settings
@@ -67,7 +68,10 @@ def reference_levels_db(s: Settings, note: int, n: int, velocity: int) -> np.nda
     ({"string.inharmonicity": 0.002, "string.t60_high": 0.3, "output.gain_db": -20.0}, 33, 100),
 ])
 def test_predicted_levels_follow_the_published_formulas(changes, note, velocity):
-    s = Settings.defaults().with_values(changes)
+    # Open strings: the formulas take the pluck and the pickups as fractions of the note's own length
+    # (a pickup at 0.33, past a fretted neck), string.inharmonicity as its B, and any note (33 lies
+    # below the six-string's E2); the bars at a string and fret: tests/test_ui_instrument.py.
+    s = open_strings().with_values(changes)
     ours = predicted_levels_db(s, note, 64, velocity)
     ref = reference_levels_db(s, note, 64, velocity)
     audible = ref > -150
@@ -80,7 +84,8 @@ def test_predicted_levels_follow_the_published_formulas(changes, note, velocity)
 
 def test_a_pluck_at_the_middle_predicts_no_even_harmonics():
     """sin(k pi / 2) = 0 for even k (Fletcher & Rossing 1998): a mid-string pluck has only odd ones."""
-    s = Settings.defaults().with_values({"excitation.position": 0.5, "excitation.width": 0.0})
+    # open strings: the middle of the note's own string (over a fretted neck)
+    s = open_strings().with_values({"excitation.position": 0.5, "excitation.width": 0.0})
     levels = predicted_levels_db(s, 45, 32)
     k = np.arange(1, levels.size + 1)
     assert np.all(levels[1::2] <= FLOOR_DB) and np.all(levels[0::2] > -120), (

@@ -67,7 +67,8 @@ def test_saving_writes_a_whole_new_file_into_the_user_folder_and_renames_it_into
         app = RtvoiceApp(fresh(link), safety_note=False)
         async with app.run_test(size=(80, 24)) as pilot:
             await pilot.pause()
-            await pilot.press("down", "right", "right")  # pickup 1: 2 mm towards the nut
+            # pickup 1 on the default's neck (pluck -> hand -> pickup 1): 2 mm towards the nut
+            await pilot.press("tab", "tab", "right", "right")
             dirty_text = screen_text(app)
             await pilot.press("ctrl+s")  # never saved: asks for a name
             assert isinstance(app.screen, PromptScreen)

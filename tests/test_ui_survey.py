@@ -6,6 +6,7 @@ import numpy as np
 import pytest
 from support.ui import fresh, wait_for
 
+from rtvoice.engine import Settings
 from rtvoice.survey import survey_grid
 from rtvoice.ui.app import RtvoiceApp
 from rtvoice.ui.screens.survey import SHADES, SurveyScreen, map_grids
@@ -50,3 +51,16 @@ def test_map_shades_follow_the_survey_centroid(link):
     i, j = np.unravel_index(np.argmax(plane.centroid_ratio), plane.centroid_ratio.shape)
     assert shades[i, j] == len(SHADES) - 1
     assert shades[:, :8].mean() > shades[:, -8:].mean()
+
+
+def test_the_map_keeps_short_of_the_last_fret_on_a_fretted_neck():
+    """The 12-TET fret rule (common practice): the 22nd fret of a 648 mm scale lies
+    648 * 2^(-22/12) = 181.8 mm from the saddle; the map's pickups and plucks stay short of it, and
+    the same sound with every note an open string reaches the middle of the string."""
+    fretted = Settings.defaults()  # the six-string, hand rule
+    last_fret_fraction = 2 ** (-22 / 12)
+    for grid in map_grids(fretted):
+        assert grid.max() < last_fret_fraction
+        assert grid.max() > last_fret_fraction - 2.0 / 648.0  # ...and reaches to within 2 mm of it
+    for grid in map_grids(fretted.with_values({"instrument.assign": "open"})):
+        assert grid.max() == 0.5

@@ -72,8 +72,11 @@ def test_rtvoice_in_tmux_shows_the_bars_rise_for_a_midi_note(jack_server, tmp_pa
     import rtmidi
 
     client = session_name
+    # COLUMNS and LINES left out: set in this process (GNU readline sets them when a test run loads it),
+    # they would override the pane's COLUMNS x LINES for the app (shutil.get_terminal_size reads them first).
     command = " ".join([
-        "env", f"RTVOICE_HOME={shlex.quote(str(tmp_path))}", "OPENBLAS_NUM_THREADS=1", "JACK_NO_START_SERVER=1",
+        "env", "-u", "COLUMNS", "-u", "LINES",
+        f"RTVOICE_HOME={shlex.quote(str(tmp_path))}", "OPENBLAS_NUM_THREADS=1", "JACK_NO_START_SERVER=1",
         shlex.quote(sys.executable), "-m", "rtvoice.cli", "play", "--midi-in", "virtual",
         "--client-name", client,  # Textual draws on stderr: leave it on the terminal
     ])

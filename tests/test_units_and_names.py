@@ -16,6 +16,7 @@ import pytest
 from hypothesis import given
 from hypothesis import strategies as st
 from support.cli import run_cli
+from support.sounds import open_strings
 
 from rtvoice.cli import main
 from rtvoice.engine.presets import preset_from_bytes, preset_text
@@ -48,7 +49,9 @@ def test_a_length_needs_a_finite_number_and_a_unit(text):
 
 @given(st.floats(min_value=5.0, max_value=640.0, allow_nan=False))
 def test_one_length_in_mm_cm_and_in_gives_the_same_fraction(mm):
-    defaults = Settings.defaults()
+    # Open strings: a pickup anywhere along the 648 mm string (the default neck ends at 181.8 mm); how a
+    # length is read does not depend on the rule.
+    defaults = open_strings()
     fractions = [
         apply_assignments(defaults, [f"pickup.0.position={text}"]).get("pickup.0.position")
         for text in (f"{mm!r}mm", f"{mm / 10!r}cm", f"{mm / MM_PER_INCH!r}in")
@@ -162,10 +165,19 @@ def test_a_length_out_of_range_is_refused_in_its_own_unit(assignments, message):
 
 
 def test_the_bounds_the_message_shows_are_allowed():
-    # 0.005 x 648 = 3.24 mm and 0.995 x 648 = 644.76 mm: typed exactly as shown, they are accepted.
-    low = apply_assignments(Settings.defaults(), ["pickup.0.position=3.24mm"]).get("pickup.0.position")
-    high = apply_assignments(Settings.defaults(), ["pickup.0.position=644.76mm"]).get("pickup.0.position")
+    # 0.005 x 648 = 3.24 mm and 0.995 x 648 = 644.76 mm: typed exactly as shown, they are accepted
+    # (open strings: the schema's range, the whole string).
+    low = apply_assignments(open_strings(), ["pickup.0.position=3.24mm"]).get("pickup.0.position")
+    high = apply_assignments(open_strings(), ["pickup.0.position=644.76mm"]).get("pickup.0.position")
     assert low == pytest.approx(0.005) and low >= 0.005 and high == pytest.approx(0.995) and high <= 0.995
+    # The default six-string ends at its 22nd fret, 648 2^(-22/12) = 181.84 mm from the saddle (12-TET
+    # fret rule, common practice): the bound its message shows, typed as shown, is accepted too.
+    with pytest.raises(SettingsError) as err:
+        apply_assignments(Settings.defaults(), ["pickup.0.position=200mm"])
+    assert err.value.allowed == "less than 181.8 mm, 0.2806 of the scale length"
+    near = apply_assignments(Settings.defaults(), ["pickup.0.position=181.8mm"]).get("pickup.0.position")
+    assert near * DEFAULT_SCALE_MM == pytest.approx(181.8) and near < 2 ** (-22 / 12)
+    assert apply_assignments(Settings.defaults(), ["pickup.0.position=0.2806"]).get("pickup.0.position") == 0.2806
 
 
 # -- note names ------------------------------------------------------------------------

@@ -111,6 +111,17 @@ def render_text(r: dict) -> str:
             "limiter; the engine folds the same filters into its modes.", "",
             _table(["voices x modes", "total", "engine", "engine+ramps", "(a) resonators", "(b) phasors",
                     "(c) Karplus-Strong"], rows)]
+    fretted = r.get("fretted")
+    if fretted:
+        period = fretted["period_us"]
+        out += ["", "## Fretted six-string (a note every "
+                f"{fretted['note_every_blocks']} blocks, {fretted['block']} frames)", ""]
+        for label, key in (("blocks where a note starts", "note_on_blocks"), ("other blocks", "other_blocks"),
+                           ("every block", "every_block")):
+            t = fretted[key]
+            out.append(f"- {label}: median {t['median_us']:.0f} us ({_pct(t['median_us'] / period)}), "
+                       f"p99 {t['p99_us']:.0f} us ({_pct(t['p99_us'] / period)}), {t['count']} blocks")
+        out.append(f"- voices sounding (mean, fading ones included): {fretted['active_voices_mean']:.1f}")
     idle = r["idle"]
     out += ["", "## Idle", "", f"- silent 128-voice engine: {idle['silent_block']['median_us']:.0f} us "
             f"({_pct(idle['silent_load'])} of the period); per idle slot: {idle['per_idle_slot_us']:.3f} us"]

@@ -8,6 +8,7 @@ from dataclasses import asdict, dataclass, field
 
 from rtvoice.bench import machine, profile, realtime
 from rtvoice.bench.compare import compare_at
+from rtvoice.bench.fretted import time_fretted
 from rtvoice.bench.grid import block_period_us, idle_costs, run_grid
 from rtvoice.bench.limits import bare_table_product
 from rtvoice.bench.scenes import SAMPLE_RATE_HZ, feature_settings
@@ -33,6 +34,8 @@ IDLE_SLOTS_LOAD, SILENT_LOAD = 0.01, 0.05
 #: The host's target: callback p99 at most this share of a 128-frame period (32 voices), and
 #: no more xruns with the UI drawing than without it over the same stretch on the same server.
 TARGET_CALLBACK_P99 = 0.35
+#: A fretted note-on (its place's tables, pickup rows and level bound) leaves half the period to the rest.
+TARGET_FRETTED_NOTE_ON_P99 = 0.5
 
 
 @dataclass(frozen=True)
@@ -85,6 +88,8 @@ def run(plan: Plan, progress: Callable[[str], None] | None = None) -> dict:
     ]
     say("idle costs")
     result["idle"] = idle_costs(TARGET_BLOCK, plan.repeats)
+    say("fretted six-string, a tremolo across the strings")
+    result["fretted"] = time_fretted(TARGET_BLOCK, 3 * plan.repeats).as_dict()
 
     say("baselines")
     result["baselines"] = [compare_at(v, m, TARGET_BLOCK, plan.repeats, plan.baseline_budget_s)
@@ -172,6 +177,17 @@ def evaluate_targets(result: dict, grid, steady) -> list[dict]:
         f"silent engine {100 * idle['silent_load']:.1f} %",
         f"idle slots < {100 * IDLE_SLOTS_LOAD:.0f} %, silent engine < {100 * SILENT_LOAD:.0f} %",
         slots_load < IDLE_SLOTS_LOAD and idle["silent_load"] < SILENT_LOAD)
+    fretted = result.get("fretted")
+    if fretted:
+        on, every = fretted["note_on_blocks"], fretted["every_block"]
+        add(f"fretted six-string, a note every {fretted['note_every_blocks']} blocks across the strings "
+            f"(every feature on), {fretted['block']} frames",
+            f"blocks where a note starts: median {on['median_us']:.0f} us, p99 {on['p99_us']:.0f} us "
+            f"({100 * fretted['note_on_load_p99']:.1f} % of the period); every block: median "
+            f"{every['median_us']:.0f} us, p99 {100 * fretted['load_p99']:.1f} %",
+            f"note-on block p99 <= {100 * TARGET_FRETTED_NOTE_ON_P99:.0f} % of the period",
+            fretted["note_on_load_p99"] <= TARGET_FRETTED_NOTE_ON_P99,
+            "a note starting at a place (string, fret) of its own: tables, pickup rows, the level bound")
     rt = result.get("realtime_host", {})
     if rt.get("available"):
         head, ui = rt["ringing"]["without_ui"], rt["ringing"]["with_ui"]

@@ -4,6 +4,10 @@
 displacement-sensing), the coil-and-cable resonance filter, the DC blocker and
 limiter (always on) and a pickup moving all the time, so every block is rendered
 with the smoothing ramp (the engine's most expensive path).
+
+The chords are of open strings (``instrument.assign = "open"``): a six-string holds at most six
+notes, and the grid times pools of up to 128 voices. The fretted instrument has scenes of its own
+(:mod:`rtvoice.bench.fretted`).
 """
 
 from __future__ import annotations
@@ -22,6 +26,7 @@ SWING_POSITIONS = (0.12, 0.16)
 SWING_EVERY_BLOCKS = 8
 
 FEATURES = {
+    "instrument.assign": "open",
     "pickup.0.position": SWING_POSITIONS[0],
     "pickup.0.width": 0.04,
     "pickup.0.sensing": "velocity",

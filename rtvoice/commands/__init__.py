@@ -12,4 +12,5 @@ MODULES = [
     "rtvoice.commands.play",
     "rtvoice.commands.bench",
     "rtvoice.commands.survey",
+    "rtvoice.commands.fit",
 ]

@@ -9,6 +9,7 @@ bench and soak import from here; the modules behind it are the engine's own busi
 from __future__ import annotations
 
 from rtvoice.engine.controls import ControlMap, check_entries, default_entries
+from rtvoice.engine.distances import within_neck
 from rtvoice.engine.events import Error, Learned, Values
 from rtvoice.engine.instrument import AssignRule, Instrument, Placement, fretted_place, string_and_fret
 from rtvoice.engine.midi import NOTE_ON, channel_messages
@@ -51,7 +52,16 @@ from rtvoice.engine.stringing import (  # the instrument's strings (issue 17)
     string_physics_of,
     t60s_of,
 )
-from rtvoice.engine.units import MM_PER_UNIT, NOTE_NAMES, allowed_text, in_unit, note_name, parse_note, split_unit
+from rtvoice.engine.units import (
+    MM_PER_UNIT,
+    NOTE_NAMES,
+    allowed_text,
+    in_unit,
+    note_name,
+    parse_length_mm,
+    parse_note,
+    split_unit,
+)
 from rtvoice.engine.voices import block_split
 
 __all__ = [
@@ -107,6 +117,7 @@ __all__ = [
     "note_model",
     "note_model_at",
     "note_name",
+    "parse_length_mm",
     "parse_note",
     "placed_note",
     "pool_token",
@@ -121,6 +132,7 @@ __all__ = [
     "split_unit",
     "velocity_gain",
     "voice_amplitudes",
+    "within_neck",
     "write_atomic",
     # the instrument's strings and the preset format's notice (issue 17)
     "MAX_STRINGS",

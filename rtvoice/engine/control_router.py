@@ -19,6 +19,7 @@ from typing import Any, Protocol
 
 from rtvoice.engine.changes import Excitation
 from rtvoice.engine.controls import ControlMap
+from rtvoice.engine.distances import within_neck
 from rtvoice.engine.events import EngineEvent, Error, Learned, Values
 from rtvoice.engine.midi import ChannelState
 from rtvoice.engine.settings import Settings, SettingsError
@@ -36,6 +37,11 @@ class Engine(Protocol):
     def apply_settings(self, settings: Settings) -> None: ...
 
 APPLY_EVERY_S = 0.004
+
+
+def _is_place(name: str) -> bool:
+    """The pluck's or a pickup's place along the string (a controller may carry them to the neck)."""
+    return name == "excitation.position" or (name.startswith("pickup.") and name.endswith(".position"))
 
 
 class ControlRouter:
@@ -90,6 +96,8 @@ class ControlRouter:
         self.pending.clear()
         if not changes:
             return
+        for name in [n for n in changes if _is_place(n)]:
+            changes[name] = within_neck(engine.settings, name, float(changes[name]))
         try:
             new = engine.settings.with_values(changes, source="controller")
         except SettingsError as err:

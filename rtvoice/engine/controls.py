@@ -15,7 +15,7 @@ The default map follows common controller conventions (common practice): the
 modulation wheel moves the pickup, channel volume sets the output gain, the sound
 controllers 71/72/74 (harmonic content, release time, brightness) set the
 resonance Q, the release T60 and the resonance frequency, general-purpose
-controllers 16-18 set the pluck position and widths, and in MPE the per-note
+controllers 16-18 set the pluck position and widths, 19 the fretting hand, and in MPE the per-note
 timbre axis (CC74) sets where each note is plucked.
 
 Entries are plain dicts (the form of the preset's ``[[control]]`` tables):
@@ -64,15 +64,18 @@ def _entry(target: str, cc: int | None = None, *, source: str = "cc", bits: int 
 
 
 DEFAULT_ENTRIES: tuple[dict[str, Any], ...] = (
-    _entry("pickup.0.position", 1, bits=14, low=0.03, high=0.5),  # modulation wheel (CC1/33)
+    # Places along the string reach 0.27 of the scale (175 mm on 648): just short of the 22nd fret, the
+    # end of the default neck; a controller carries them no further than a shorter neck's last fret.
+    _entry("pickup.0.position", 1, bits=14, low=0.03, high=0.27),  # modulation wheel (CC1/33)
     _entry("output.gain_db", 7, bits=14, low=-60.0, high=0.0),  # channel volume (CC7/39)
     _entry("electronics.resonance_hz", 74, low=1000.0, high=12000.0, curve="log"),  # brightness
     _entry("electronics.q", 71, low=0.5, high=8.0, curve="log"),  # harmonic content
     _entry("string.release", 72, low=0.02, high=4.0, curve="log"),  # release time
-    _entry("excitation.position", 16, low=0.02, high=0.5),  # general purpose 1
+    _entry("excitation.position", 16, low=0.02, high=0.27),  # general purpose 1
     _entry("excitation.width", 17, low=0.0, high=0.1),  # general purpose 2
     _entry("pickup.0.width", 18, low=0.0, high=0.1),  # general purpose 3
-    _entry("excitation.position", source="note_timbre", low=0.05, high=0.5),  # MPE per-note CC74
+    _entry("hand.fret", 19, low=0.0, high=12.0),  # general purpose 4: the fretting hand, nut to 12th fret
+    _entry("excitation.position", source="note_timbre", low=0.05, high=0.27),  # MPE per-note CC74
 )
 
 

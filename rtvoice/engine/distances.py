@@ -181,6 +181,25 @@ def check_geometry(settings: Instrument, source: str) -> None:
                         scale_mm, frets, last_mm, source)
 
 
+#: How far short of the last fret a controller may carry the pluck or a pickup on a fretted neck.
+NECK_MARGIN_MM = 1.0
+
+
+def within_neck(settings: Instrument, name: str, fraction: float) -> float:
+    """``fraction`` of the scale for the pluck or a pickup (``name``) held where the settings
+    allow it: on a fretted instrument, at least NECK_MARGIN_MM short of the last fret (both ends of
+    a slanted pickup); under the open rule, unchanged. A controller sweeping past the neck then
+    stops there instead of being refused."""
+    values = settings.values
+    if values["instrument.assign"] == "open":
+        return fraction
+    scale_mm = values[SCALE_KEY]
+    end = (speaking_length_mm(scale_mm, values["instrument.frets"]) - NECK_MARGIN_MM) / scale_mm
+    _, index = lookup(name)
+    half_slant = abs(settings.pickups[index].get("slant", 0.0)) / 2.0 if index is not None else 0.0
+    return min(fraction, float(end - half_slant))
+
+
 def _refuse(get: Callable[[str], Any], keys: list[str], what: str, fraction: float, scale_mm: float, frets: int,
             last_mm: float, source: str) -> NoReturn:
     """Refuse ``what`` at ``fraction`` of the scale, naming the first key the player changed."""
@@ -196,4 +215,4 @@ def _refuse(get: Callable[[str], Any], keys: list[str], what: str, fraction: flo
 
 __all__ = ["FRACTION_FIELDS", "SCALE_KEY", "Instrument", "bare_fraction_keys",
            "check_geometry", "checked_mm", "first_changed", "fraction_from_text", "is_fraction_of_length",
-           "mm_text", "typed_length"]
+           "mm_text", "typed_length", "within_neck"]

@@ -16,6 +16,8 @@ from collections.abc import Collection
 from dataclasses import dataclass
 from enum import Enum
 
+import numpy as np
+
 from rtvoice.engine.settings import Settings
 
 OPEN_PLACES = 128  # places 0..127: the open rule's one string per MIDI note
@@ -56,6 +58,11 @@ def string_and_fret(place: int) -> tuple[int, int]:
     return string + 1, fret
 
 
+def strings_of(places: np.ndarray) -> np.ndarray:
+    """The string of each place (as :func:`string_and_fret`, over an array; 0 for open-rule places)."""
+    return np.where(places >= OPEN_PLACES, (places - OPEN_PLACES) // (MAX_FRETS + 1) + 1, 0)
+
+
 @dataclass(frozen=True)
 class Instrument:
     """The strings a performer can play: the rule, the open notes (string 1 first), the fret count
@@ -79,6 +86,11 @@ class Instrument:
     def fretted(self) -> bool:
         """True when notes sound on strings and frets (positions fixed in space)."""
         return self.rule is not AssignRule.OPEN
+
+    @property
+    def place_count(self) -> int:
+        """How many places a fretted instrument's notes can sound at (every string at every fret); 0 open."""
+        return len(self.open_notes) * (self.frets + 1) if self.fretted else 0
 
     def on_string(self, note: int, string: int) -> Placement | None:
         """``note`` played on ``string``, or None when that string cannot play it (below its open
@@ -113,4 +125,5 @@ class Instrument:
         return None if best is None else best[1]
 
 
-__all__ = ["MAX_PLACES", "OPEN_PLACES", "AssignRule", "Instrument", "Placement", "fretted_place", "string_and_fret"]
+__all__ = ["MAX_PLACES", "OPEN_PLACES", "AssignRule", "Instrument", "Placement", "fretted_place", "string_and_fret",
+           "strings_of"]

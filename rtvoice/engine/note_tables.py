@@ -57,6 +57,15 @@ class NoteTables:
         self.epoch = 0
         self.hits = self.misses = 0
 
+    def with_room(self, pool: VoicePool, entries: int) -> NoteTables:
+        """This store if it has room for ``entries``, else a larger empty one that carries on its epoch
+        (voices still ringing keep their epoch's tables apart from the new ones)."""
+        if entries <= self.entries or not self.entries:  # a store told to keep nothing stays so
+            return self
+        larger = NoteTables(pool, entries)
+        larger.epoch = self.epoch
+        return larger
+
     def clear(self) -> None:
         """Forget every entry; voices started from now on belong to a new epoch."""
         self._where.clear()

@@ -22,7 +22,7 @@ import numpy as np
 from rtvoice.engine import midi
 from rtvoice.engine.changes import ChangeKind, Excitation, NoteStart, VoiceChange
 from rtvoice.engine.control_router import ControlRouter
-from rtvoice.engine.instrument import OPEN_PLACES, Instrument, Placement, string_and_fret
+from rtvoice.engine.instrument import Instrument, Placement, string_and_fret, strings_of
 from rtvoice.engine.voices import FADING, HELD, RELEASED, SOUNDING, VoicePool
 
 
@@ -104,9 +104,8 @@ class Performer:
             self.placements.append(placed)
             place = placed.place
             # One note per string: whatever the string was playing stops, as a re-pluck does.
-            string = placed.string
-            again += [v for v in np.flatnonzero(pool.place[:n] >= OPEN_PLACES).tolist()
-                      if state[v] != FADING and string_and_fret(int(pool.place[v]))[0] == string and v not in again]
+            on_string = (strings_of(pool.place[:n]) == placed.string) & (state != FADING)
+            again += [v for v in np.flatnonzero(on_string).tolist() if v not in again]
         # A re-plucked note stops its old vibration with a short fade, as a finger would.
         for v in again:
             self.fade(v, at)
@@ -143,8 +142,8 @@ class Performer:
             if string:
                 return Placement(note, int(pool.place[v]), string, fret)
         n = pool.n_active
-        sounding = {string_and_fret(int(p))[0] for p, s in zip(pool.place[:n], pool.state[:n], strict=True)
-                    if s != FADING}
+        # over arrays: a loop comparing numpy scalars with the state enum costs ~1 us a slot
+        sounding = set(strings_of(pool.place[:n][pool.state[:n] != FADING]).tolist())
         return self.instrument.choose(note, ch, sounding, by_hand=self.channels.zone_master(ch) is not None)
 
     def _bounds(self) -> np.ndarray:

@@ -161,7 +161,9 @@ def preset_from_bytes(raw: bytes, source: str, default_name: str = "") -> Settin
     if old_fractions:
         warnings.warn(PresetFormatNotice(
             f"{source}: written before positions were in mm; its fractions are read as fractions of the "
-            f"{settings.get(SCALE_KEY):g} mm scale length and will be saved in mm"), stacklevel=2)
+            f"{settings.get(SCALE_KEY):g} mm scale length and will be saved in mm"
+            + ("; every note plays as an open string of its own (instrument.assign = open), as before"
+               if settings.get("instrument.assign") == "open" else "")), stacklevel=2)
     if ignored:
         shown = ", ".join(ignored[:12]) + (f" and {len(ignored) - 12} more" if len(ignored) > 12 else "")
         warnings.warn(PresetWarning(f"{source}: written by a newer rtvoice; left out what this version does "

@@ -165,7 +165,7 @@ _PARAMS = [
           help="T60 after note-off (a muted string), unless the sustain pedal holds it."),
     Param("string.scale_length_mm", "float", 648.0, "mm", 100.0, 2000.0,
           help="Open speaking length from the bridge saddle to the nut; positions are fractions of it."),
-    Param("instrument.assign", "choice", "open", choices=("open", "hand", "channel"),
+    Param("instrument.assign", "choice", "hand", choices=("open", "hand", "channel"),
           help="open: every note an open string of its own (positions: fractions of its length); hand: the "
                "string where the note is nearest hand.fret; channel: MIDI channel n plays string n."),
     Param("instrument.frets", "int", 22, "", 0, 36, help="Number of frets on the neck."),
@@ -312,15 +312,16 @@ ADDED_PICKUP_PLACES = (0.062, 0.154, 0.247, 0.33)
 PICKUP_SPACING = 0.03  # an added pickup keeps at least this far (a fraction) from the others
 
 
-def added_pickup(existing: Sequence[Mapping[str, Any]]) -> dict[str, Any]:
-    """A new pickup, at a place of its own: never stacked on a pickup already there."""
-    taken = sorted(float(p["position"]) for p in existing)
+def added_pickup(existing: Sequence[Mapping[str, Any]], end: float = 0.5) -> dict[str, Any]:
+    """A new pickup, at a place of its own short of ``end`` (the middle of the string, or where a
+    fretted neck's last fret stops it): never stacked on a pickup already there."""
+    taken = sorted(t for t in (float(p["position"]) for p in existing) if t < end)
     pickup = default_pickup()
     for place in ADDED_PICKUP_PLACES:
-        if all(abs(place - t) >= PICKUP_SPACING for t in taken):
+        if place < end and all(abs(place - t) >= PICKUP_SPACING for t in taken):
             pickup["position"] = place
             return pickup
-    edges = [0.02, *taken, 0.5]  # between the bridge end and the middle, where pickups sit
+    edges = [0.02, *taken, end]  # between the bridge end and the middle (or the neck), where pickups sit
     gaps = [(b - a, (a + b) / 2) for a, b in zip(edges, edges[1:], strict=False)]
     pickup["position"] = round(max(gaps)[1], 4)
     return pickup

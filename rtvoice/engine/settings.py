@@ -25,6 +25,7 @@ from rtvoice.engine.distances import (
     checked_mm,
     fraction_from_text,
     is_fraction_of_length,
+    within_neck,
 )
 from rtvoice.engine.schema import (
     MAX_PICKUPS,
@@ -84,7 +85,8 @@ class Settings:
         names appended to ``ignored`` for the caller to report. A preset from before
         :data:`MM_FORMAT` (``format`` 1 or none) that gives positions, slants or widths
         as bare fractions has their names appended to ``old_fractions``: they are read
-        as fractions of the open scale length, as they always were.
+        as fractions of the open scale length, as they always were, and unless it sets
+        ``instrument.assign`` every note is an open string of its own, as it was written for.
         """
         base = base or cls.defaults()
         declared = _preset_format(data.get("format", PRESET_FORMAT), source)
@@ -135,6 +137,8 @@ class Settings:
             for i, item in enumerate(pickups):
                 for f, v in item.items():
                     changes[f"pickup.{i}.{f}"] = v
+        if _written_for_open_strings(data, declared):
+            changes.setdefault("instrument.assign", "open")
         n_pickups = None if pickups is None else len(pickups)
         settings = base._changed(changes, source, name, description, n_pickups=n_pickups, string_tables=strings)
         if ignored is not None:
@@ -164,8 +168,9 @@ class Settings:
         if not 1 <= n <= MAX_PICKUPS:
             raise SettingsError("pickup", n, f"between 1 and {MAX_PICKUPS} pickups", "")
         pickups = list(self.pickups[:n])
+        end = within_neck(self, "excitation.position", 0.5)  # a fretted neck ends the string sooner
         while len(pickups) < n:
-            pickups.append(added_pickup(pickups))
+            pickups.append(added_pickup(pickups, end))
         return replace(self, pickups=tuple(pickups))
 
     def with_string_count(self, n: int, source: str = "") -> Settings:
@@ -328,6 +333,18 @@ def _read_pickups(value: Any, source: str, unknown: Callable[[str, Any, str, str
                 unknown(f"pickup.{i}.{f}", item[f], "unknown key", closest_name(f"pickup.{i}.{f}"))
         out.append(kept)
     return out
+
+
+def _written_for_open_strings(data: Mapping[str, Any], declared: int) -> bool:
+    """A preset from before the instrument (``format`` 1, or none and positions as bare fractions) that
+    does not choose how notes are placed: it was written for every note an open string of its own,
+    and plays so still (its pluck may sit past where a fretted neck ends)."""
+    if "format" in data and declared >= MM_FORMAT:
+        return False
+    if "format" not in data and not bare_fraction_keys(data):
+        return False
+    instrument = data.get("instrument")
+    return not (isinstance(instrument, Mapping) and "assign" in instrument)
 
 
 def _preset_format(value: Any, source: str) -> int:

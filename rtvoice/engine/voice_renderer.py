@@ -114,6 +114,9 @@ class VoiceRenderer:
         self.initial = initial_amplitudes(s, self.pool.modes)
         self.instrument = Instrument.from_settings(s)
         self.places.prepare(s, self.instrument, self.initial, self.stretch)
+        # A fretted instrument plays a few places again and again (a tremolo re-plucks, so fades, each
+        # note): room for every place's tables held and faded (40 KiB a place at 128 modes).
+        self.tables = self.tables.with_room(self.pool, 2 * self.instrument.place_count)
         self.tables.clear()  # frequencies and decay rates may have changed
 
     def prepare_electronics(self) -> None:

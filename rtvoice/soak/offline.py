@@ -17,7 +17,17 @@ from dataclasses import asdict, dataclass, field
 
 import numpy as np
 
-from rtvoice.engine import CEILING, Engine, Settings, SettingsError, Values, list_presets, load_preset, pool_token
+from rtvoice.engine import (
+    CEILING,
+    Engine,
+    Settings,
+    SettingsError,
+    Values,
+    list_presets,
+    load_preset,
+    pool_token,
+    within_neck,
+)
 from rtvoice.soak.held import HeldNote
 from rtvoice.soak.memory import MemorySampler
 from rtvoice.soak.traffic import RandomTraffic
@@ -134,6 +144,7 @@ def _random_live(rng: np.random.Generator, s: Settings) -> Settings:
     """A preset with its gain and first pickup moved at random (gain up to the schema's +12 dB)."""
     changes = {"output.gain_db": float(rng.choice([rng.uniform(-30.0, 0.0), 12.0, rng.uniform(0.0, 12.0)])),
                "pickup.0.position": float(rng.uniform(0.02, 0.5))}
+    changes["pickup.0.position"] = within_neck(s, "pickup.0.position", changes["pickup.0.position"])
     try:
         return s.with_values(changes)
     except SettingsError:
@@ -158,7 +169,10 @@ def run_offline(config: OfflineConfig | None = None, progress=None) -> OfflineRe
     blocks = max(1, math.ceil(cfg.audio_s * fs / n_blk))
     res = OfflineResult(cfg)
     voices, modes = POOL_SHAPES[1]
-    traffic_settings = Settings.defaults().with_values({"voices": voices, "string.modes": modes})
+    # Random traffic of any key and dozens of notes at once: the open rule, where every note sounds and
+    # the limiter is pushed (a six-string holds six notes).
+    traffic_settings = Settings.defaults().with_values({"voices": voices, "string.modes": modes,
+                                                         "instrument.assign": "open"})
     presets = _factory_presets(voices, modes)
     engine = Engine(traffic_settings, fs, n_blk)
     traffic, held = RandomTraffic(rng, fs, n_blk), HeldNote(fs, n_blk)

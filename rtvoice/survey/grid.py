@@ -297,13 +297,13 @@ def survey_grid(
     sample_rate_hz: float = 48000.0,
     reference: Placement | None = None,
     missing_below_db: float = DEFAULT_MISSING_BELOW_DB,
-    past_last_fret: bool = True,
+    past_last_fret: bool = False,
 ) -> SurveyPlane:
     """One plane of descriptors, pluck (rows) x pickup (columns), for the UI's map.
 
     Pure: no I/O, the settings are not changed. Positions are fractions from the bridge (of the
-    open scale on a fretted instrument, where by default the map may reach over the neck as far as
-    the note's speaking length: see :func:`survey`).
+    open scale on a fretted instrument, where they must stay short of the last fret unless
+    ``past_last_fret``: see :func:`survey`).
     """
     result = survey(
         settings,

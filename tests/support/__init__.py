@@ -11,6 +11,7 @@ without an ``__init__.py``), so a test imports ``from support.jack_server import
 - :mod:`support.headless_host`: ``rtvoice play --headless`` as a subprocess, and its status line.
 - :mod:`support.ui`: driving the Textual app against a real engine link.
 - :mod:`support.describe`: failure messages that say what an array held.
+- :mod:`support.sounds`: the sounds tests start from (the default six-string, or open strings).
 
 Nothing here is imported by rtvoice itself.
 """

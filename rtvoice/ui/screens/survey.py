@@ -14,7 +14,7 @@ from textual.containers import Vertical
 from textual.screen import ModalScreen
 from textual.widgets import Footer, Static
 
-from rtvoice.engine import Settings
+from rtvoice.engine import Settings, within_neck
 from rtvoice.survey import SurveyPlane, survey_grid
 from rtvoice.ui.format import note_name
 from rtvoice.ui.guard import Guarded
@@ -24,7 +24,7 @@ SHADES = " .:-=+*#%@"
 PICKUP_COLUMNS = 48
 PLUCK_ROWS = 12
 DEFAULT_NOTE = 40
-PICKUP_SPAN = (0.02, 0.5)  # fractions of the string from the bridge
+PICKUP_SPAN = (0.02, 0.5)  # fractions of the string from the bridge (a fretted neck ends them sooner)
 PLUCK_SPAN = (0.04, 0.5)
 ROW_LABEL = 4  # characters of the row labels (" 120", mm) before the map's left edge
 
@@ -45,12 +45,16 @@ def pluck_is_free(settings: Settings) -> bool:
 
 
 def map_grids(settings: Settings) -> tuple[np.ndarray, np.ndarray]:
-    """Pickup positions (columns) and pluck positions (rows), fractions from the bridge.
+    """Pickup positions (columns) and pluck positions (rows), fractions from the bridge: up to the
+    middle of the string, or on a fretted instrument to 1 mm short of its last fret (where the sound
+    can take them).
 
     Each grid holds the sound's own value; with a pluck shape the pluck grid is that one value."""
-    pickups = _grid_through(PICKUP_SPAN, PICKUP_COLUMNS, float(settings.get("pickup.0.position")))
+    pickup_span = (PICKUP_SPAN[0], within_neck(settings, "pickup.0.position", PICKUP_SPAN[1]))
+    pluck_span = (PLUCK_SPAN[0], within_neck(settings, "excitation.position", PLUCK_SPAN[1]))
+    pickups = _grid_through(pickup_span, PICKUP_COLUMNS, float(settings.get("pickup.0.position")))
     pluck = float(settings.get("excitation.position"))
-    plucks = _grid_through(PLUCK_SPAN, PLUCK_ROWS, pluck) if pluck_is_free(settings) else np.array([pluck])
+    plucks = _grid_through(pluck_span, PLUCK_ROWS, pluck) if pluck_is_free(settings) else np.array([pluck])
     return pickups, plucks
 
 
