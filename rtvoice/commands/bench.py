@@ -7,10 +7,12 @@ import dataclasses
 import json
 import os
 import sys
+from collections.abc import Callable
 from pathlib import Path
 
 from rtvoice.bench.machine import BLAS_THREADS_ENV
 from rtvoice.errors import UserError
+from rtvoice.offline.options import whole_number
 
 MAX_HOST_MINUTES = 60.0
 
@@ -26,24 +28,14 @@ def host_minutes(text: str) -> float:
     return value
 
 
-def _whole(text: str, what: str) -> int:
-    try:
-        value = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected {what}, got {text!r}") from None
-    if value < 0:
-        raise argparse.ArgumentTypeError(f"expected {what}, got {value}")
-    return value
-
-
 def case_count(text: str) -> int:
     """An argparse type: how many cases of one kind the fit's accuracy study runs (0 or more)."""
-    return _whole(text, "a whole number of takes, 0 or more")
+    return whole_number(text, "a whole number of takes, 0 or more")
 
 
 def seed_value(text: str) -> int:
     """An argparse type: the seed of the study's random takes (numpy's SeedSequence takes 0 or more)."""
-    return _whole(text, "a whole number, 0 or more, as the seed")
+    return whole_number(text, "a whole number, 0 or more, as the seed")
 
 
 def register(sub: argparse._SubParsersAction) -> None:
@@ -101,13 +93,7 @@ def run_bench(args: argparse.Namespace) -> int:
     progress = None if args.json else (lambda msg: print(f"  {msg}", file=sys.stderr, flush=True))
     result = runner.run(plan, progress)
     result["command"] = "rtvoice bench" + "".join(f" {a}" for a in argv)
-    text = json.dumps(result, indent=2) if args.json else report.render_text(result)
-    sys.stdout.write(text if text.endswith("\n") else text + "\n")
-    if args.write:
-        path = Path(args.write)
-        body = json.dumps(result, indent=2) + "\n" if path.suffix == ".json" else report.render_text(result)
-        path.write_text(body, encoding="utf-8")
-    return 0
+    return _show(result, args, report.render_text)
 
 
 def _check_fit_options(args: argparse.Namespace) -> None:
@@ -138,10 +124,15 @@ def _run_fit_study(args: argparse.Namespace, argv: list[str]) -> int:
     facts["load_average_at_end"] = machine.load_average()
     result |= {"command": "rtvoice bench" + "".join(f" {a}" for a in argv),
                "wall_s": time.perf_counter() - start, "machine": facts}
-    text = json.dumps(result, indent=2) if args.json else fit_report.render_text(result)
+    return _show(result, args, fit_report.render_text)
+
+
+def _show(result: dict, args: argparse.Namespace, as_text: Callable[[dict], str]) -> int:
+    """The figures on stdout (the table, or with --json the object), and in --write's file (.json: JSON)."""
+    text = json.dumps(result, indent=2) if args.json else as_text(result)
     sys.stdout.write(text if text.endswith("\n") else text + "\n")
     if args.write:
         path = Path(args.write)
-        body = json.dumps(result, indent=2) + "\n" if path.suffix == ".json" else fit_report.render_text(result)
+        body = json.dumps(result, indent=2) + "\n" if path.suffix == ".json" else as_text(result)
         path.write_text(body, encoding="utf-8")
     return 0

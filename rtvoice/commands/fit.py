@@ -21,7 +21,7 @@ from rtvoice.fit.fitting import FitError, InstrumentFit, fit_takes
 from rtvoice.fit.moving import move_partials
 from rtvoice.fit.placement import pickup_level_ratio, pluck_level_ratio
 from rtvoice.fit.take import Take, check_take, read_take
-from rtvoice.offline.options import output_path
+from rtvoice.offline.options import output_path, whole_number
 from rtvoice.offline.render import note_events, render_events
 from rtvoice.offline.wav import write_wav
 
@@ -43,13 +43,7 @@ def length_mm(text: str) -> float:
 
 
 def _count(text: str) -> int:
-    try:
-        value = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
-    if value < 0:
-        raise argparse.ArgumentTypeError(f"expected 0 or more, got {value}")
-    return value
+    return whole_number(text, "a whole number, 0 or more")
 
 
 def register(sub: argparse._SubParsersAction) -> None:

@@ -159,13 +159,12 @@ def check_geometry(settings: Instrument, source: str) -> None:
         raise SettingsError(key, get(key), f"the hand at fret {hand:g} lies beyond the last fret ({frets})",
                             source, allowed=f"hand.fret 0 .. {frets}")
     scale_mm = values[SCALE_KEY]
-    fretted = values["instrument.assign"] != "open"
-    last_mm = speaking_length_mm(scale_mm, frets)
+    last_mm = neck_end_mm(values)
 
     def fits(fraction: float) -> bool:
-        return 0.0 < fraction < 1.0 and (not fretted or fraction * scale_mm < last_mm)
+        return 0.0 < fraction < 1.0 and (last_mm is None or fraction * scale_mm < last_mm)
 
-    neck = ["instrument.frets", "instrument.assign"] if fretted else []
+    neck = [] if last_mm is None else ["instrument.frets", "instrument.assign"]
     pluck = values["excitation.position"]
     if not fits(pluck):
         _refuse(get, ["excitation.position", *neck], "the pluck", pluck, scale_mm, frets, last_mm, source)
@@ -185,29 +184,37 @@ def check_geometry(settings: Instrument, source: str) -> None:
 NECK_MARGIN_MM = 1.0
 
 
+def neck_end_mm(values: Mapping[str, Any]) -> float | None:
+    """Where a fretted neck ends, in mm from the saddle: its last fret (the 12-TET fret rule, common
+    practice). None under the open rule, where every note is an open string and nothing is over a neck."""
+    if values["instrument.assign"] == "open":
+        return None
+    return float(speaking_length_mm(values[SCALE_KEY], values["instrument.frets"]))
+
+
 def within_neck(settings: Instrument, name: str, fraction: float) -> float:
     """``fraction`` of the scale for the pluck or a pickup (``name``) held where the settings
     allow it: on a fretted instrument, at least NECK_MARGIN_MM short of the last fret (both ends of
     a slanted pickup); under the open rule, unchanged. A controller sweeping past the neck then
     stops there instead of being refused."""
-    values = settings.values
-    if values["instrument.assign"] == "open":
+    last_mm = neck_end_mm(settings.values)
+    if last_mm is None:
         return fraction
-    scale_mm = values[SCALE_KEY]
-    end = (speaking_length_mm(scale_mm, values["instrument.frets"]) - NECK_MARGIN_MM) / scale_mm
+    end = (last_mm - NECK_MARGIN_MM) / settings.values[SCALE_KEY]
     _, index = lookup(name)
     half_slant = abs(settings.pickups[index].get("slant", 0.0)) / 2.0 if index is not None else 0.0
     return min(fraction, float(end - half_slant))
 
 
 def _refuse(get: Callable[[str], Any], keys: list[str], what: str, fraction: float, scale_mm: float, frets: int,
-            last_mm: float, source: str) -> NoReturn:
+            last_mm: float | None, source: str) -> NoReturn:
     """Refuse ``what`` at ``fraction`` of the scale, naming the first key the player changed."""
     key = first_changed(get, keys)
     where = f"{what} at {fraction * scale_mm:.4g} mm from the saddle"
     if not 0.0 < fraction < 1.0:
         raise SettingsError(key, get(key), f"{where} lies off the {scale_mm:g} mm string", source,
                             allowed=f"both ends between 0 and {scale_mm:g} mm")
+    assert last_mm is not None  # on the string, refused: so over a fretted neck
     raise SettingsError(key, get(key), f"{where} lies over the neck: the last fret ({frets}) is "
                         f"{last_mm:.4g} mm from the saddle", source,
                         allowed=f"less than {last_mm:.4g} mm, {last_mm / scale_mm:.4g} of the scale length")
@@ -215,4 +222,4 @@ def _refuse(get: Callable[[str], Any], keys: list[str], what: str, fraction: flo
 
 __all__ = ["FRACTION_FIELDS", "SCALE_KEY", "Instrument", "bare_fraction_keys",
            "check_geometry", "checked_mm", "first_changed", "fraction_from_text", "is_fraction_of_length",
-           "mm_text", "typed_length", "within_neck"]
+           "mm_text", "neck_end_mm", "typed_length", "within_neck"]

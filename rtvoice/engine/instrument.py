@@ -58,9 +58,16 @@ def string_and_fret(place: int) -> tuple[int, int]:
     return string + 1, fret
 
 
+def strings_and_frets(places: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(string, fret) of each fretted place: :func:`string_and_fret`'s arithmetic over an array (an
+    open-rule place gives a string below 1: see :func:`strings_of`)."""
+    string0, fret = np.divmod(np.asarray(places, dtype=int) - OPEN_PLACES, MAX_FRETS + 1)
+    return string0 + 1, fret
+
+
 def strings_of(places: np.ndarray) -> np.ndarray:
     """The string of each place (as :func:`string_and_fret`, over an array; 0 for open-rule places)."""
-    return np.where(places >= OPEN_PLACES, (places - OPEN_PLACES) // (MAX_FRETS + 1) + 1, 0)
+    return np.where(places >= OPEN_PLACES, strings_and_frets(places)[0], 0)
 
 
 @dataclass(frozen=True)
@@ -126,4 +133,4 @@ class Instrument:
 
 
 __all__ = ["MAX_PLACES", "OPEN_PLACES", "AssignRule", "Instrument", "Placement", "fretted_place", "string_and_fret",
-           "strings_of"]
+           "strings_and_frets", "strings_of"]

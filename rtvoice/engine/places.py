@@ -27,7 +27,7 @@ from typing import Any
 import numpy as np
 
 from rtvoice.engine.changes import Excitation
-from rtvoice.engine.instrument import MAX_FRETS, OPEN_PLACES, Instrument, string_and_fret
+from rtvoice.engine.instrument import OPEN_PLACES, Instrument, string_and_fret, strings_and_frets
 from rtvoice.engine.notes import harmonic_stretch, initial_amplitudes
 from rtvoice.engine.placed_notes import slant_shares
 from rtvoice.engine.settings import Settings
@@ -81,8 +81,8 @@ class PlaceModel:
     @staticmethod
     def split(places: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """(string index from 0, fret) of fretted ``places``."""
-        string0, fret = np.divmod(np.asarray(places, dtype=int) - OPEN_PLACES, MAX_FRETS + 1)
-        return string0, fret
+        string, fret = strings_and_frets(places)
+        return string - 1, fret
 
     def note_of(self, places: np.ndarray) -> np.ndarray:
         """The MIDI note each fretted place sounds (its string's open note plus the fret)."""

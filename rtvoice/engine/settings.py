@@ -19,13 +19,14 @@ from typing import Any
 from rtvoice.engine import stringing
 from rtvoice.engine.controls import check_entries
 from rtvoice.engine.distances import (
+    NECK_MARGIN_MM,
     SCALE_KEY,
     bare_fraction_keys,
     check_geometry,
     checked_mm,
     fraction_from_text,
     is_fraction_of_length,
-    within_neck,
+    neck_end_mm,
 )
 from rtvoice.engine.schema import (
     MAX_PICKUPS,
@@ -168,7 +169,8 @@ class Settings:
         if not 1 <= n <= MAX_PICKUPS:
             raise SettingsError("pickup", n, f"between 1 and {MAX_PICKUPS} pickups", "")
         pickups = list(self.pickups[:n])
-        end = within_neck(self, "excitation.position", 0.5)  # a fretted neck ends the string sooner
+        last_mm = neck_end_mm(self.values)  # a fretted neck ends the string sooner than its middle
+        end = 0.5 if last_mm is None else min(0.5, (last_mm - NECK_MARGIN_MM) / self.get(SCALE_KEY))
         while len(pickups) < n:
             pickups.append(added_pickup(pickups, end))
         return replace(self, pickups=tuple(pickups))

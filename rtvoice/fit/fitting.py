@@ -13,7 +13,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
@@ -183,7 +183,7 @@ def fit_takes(takes: Sequence[Take], base: Settings, *, string: int | None = Non
         placement = fit_placement_group([PartialLevels(*lv) for lv in levels], speaking_length_mm=length_mm,
                                         sensing=sensing, pickup_mm=pickup_mm)
     fit = InstrumentFit(base, where, scale_mm, length_mm, sensing, analyses, placement, cents)
-    return InstrumentFit(fitted_settings(fit), where, scale_mm, length_mm, sensing, analyses, placement, cents)
+    return replace(fit, settings=fitted_settings(fit))
 
 
 def _levels(a: PartialAnalysis) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
@@ -197,7 +197,7 @@ def _levels(a: PartialAnalysis) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.
 
 
 def fitted_settings(fit: InstrumentFit) -> Settings:
-    """The base instrument with what the takes showed: the string's open B and T60s, the tuning, the
+    """``fit.settings`` (the base instrument) with what the takes showed: the string's open B and T60s, the tuning, the
     pluck (the first take's), the one pickup at its distance with its aperture and sensing, and the
     resonance set directly (the circuit values cleared) where the partials reached it."""
     base, where, p = fit.settings, fit.where, fit.placement

@@ -30,3 +30,14 @@ def output_path(text: str) -> str:
     except OSError as err:  # a name the system refuses outright (too long, say)
         raise argparse.ArgumentTypeError(f"{text[:60]}...: not a usable file name ({err.strerror})") from None
     return text
+
+
+def whole_number(text: str, what: str) -> int:
+    """An argparse type's body: ``text`` as a whole number, 0 or more; ``what`` names it in the error."""
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected {what}, got {text!r}") from None
+    if value < 0:
+        raise argparse.ArgumentTypeError(f"expected {what}, got {value}")
+    return value
